@@ -1,0 +1,124 @@
+"""Bulk numbers from decoded JSON to float arrays, checked by numpy in one pass.
+
+A list of JSON numbers becomes a float64 array through one ``numpy.array`` call;
+shape, type and finiteness are then whole-array checks. Only when that pass fails
+does the code walk the values, to point at the offending ones. ``null`` is a missing
+value (NaN here); whether it is allowed is the caller's decision.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .problems import ApiProblem, FieldError, pointer
+
+__all__ = ["as_vector", "as_matrix", "invalid", "MAX_POINTED"]
+
+MAX_POINTED = 10
+_NUMBER_TYPES = (int, float)
+
+
+def invalid(errors: list[FieldError], detail: str | None = None) -> ApiProblem:
+    return ApiProblem(422, "Invalid request", detail or errors[0].message, "invalid_request",
+                      errors[:MAX_POINTED])
+
+
+def _object_cells(arr: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:
+    """Convert an object array of numbers and None to float, pointing at anything else."""
+    kinds = np.frompyfunc(lambda v: v is None or (type(v) in _NUMBER_TYPES), 1, 1)(arr)
+    ok = kinds.astype(bool)
+    if not ok.all():
+        errors = []
+        for index in zip(*np.nonzero(~ok)):
+            value = arr[index]
+            what = type(value).__name__ if not isinstance(value, bool) else "a boolean"
+            errors.append(FieldError(pointer(*where, *map(int, index)),
+                                     f"must be a number or null, not {what}"))
+            if len(errors) >= MAX_POINTED:
+                break
+        raise invalid(errors)
+    try:
+        return arr.astype(float)
+    except OverflowError:
+        pass
+    flat = arr.ravel()
+    out = np.empty(flat.shape)
+    for i, v in enumerate(flat):
+        try:
+            out[i] = np.nan if v is None else float(v)
+        except OverflowError:
+            out[i] = np.inf
+    return out.reshape(arr.shape)
+
+
+def _finite(out: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:
+    bad = np.isinf(out)
+    if bad.any():
+        errors = [FieldError(pointer(*where, *map(int, ix)), "must be a finite number")
+                  for ix in zip(*np.nonzero(bad))]
+        raise invalid(errors)
+    return out
+
+
+def _convert(value: object, where: tuple[str | int, ...]) -> np.ndarray:
+    try:
+        arr = np.array(value)
+    except (ValueError, OverflowError):
+        arr = np.array(value, dtype=object) if _is_rectangular(value) else None
+        if arr is None:
+            raise _ragged(value, where) from None
+    if arr.dtype.kind in "fiu":
+        return _finite(arr.astype(float, copy=False), where)
+    if arr.dtype.kind == "b":
+        raise invalid([FieldError(pointer(*where), "must hold numbers, not booleans")])
+    if arr.dtype.kind != "O":
+        arr = np.array(value, dtype=object)
+    return _finite(_object_cells(arr, where), where)
+
+
+def _is_rectangular(value: object) -> bool:
+    if not isinstance(value, list) or not value or not isinstance(value[0], list):
+        return isinstance(value, list)
+    width = len(value[0])
+    return all(isinstance(r, list) and len(r) == width for r in value)
+
+
+def _ragged(value: object, where: tuple[str | int, ...]) -> ApiProblem:
+    if isinstance(value, list) and value and isinstance(value[0], list):
+        width = len(value[0])
+        for i, row in enumerate(value):
+            if not isinstance(row, list):
+                return invalid([FieldError(pointer(*where, i), "must be a list of numbers")])
+            if len(row) != width:
+                return invalid([FieldError(pointer(*where, i),
+                                           f"has {len(row)} values; row 0 has {width}")])
+            for j, cell in enumerate(row):
+                if isinstance(cell, (list, dict)):
+                    return invalid([FieldError(pointer(*where, i, j), "must be a number")])
+    return invalid([FieldError(pointer(*where), "must be a flat list of numbers")])
+
+
+def as_vector(value: object, where: tuple[str | int, ...]) -> np.ndarray:
+    """A JSON list of numbers (or nulls) as a float array; a 422 problem otherwise."""
+    if not isinstance(value, list):
+        raise invalid([FieldError(pointer(*where), "must be a list of numbers")])
+    if not value:
+        raise invalid([FieldError(pointer(*where), "must not be empty")])
+    arr = _convert(value, where)
+    if arr.ndim != 1:
+        raise invalid([FieldError(pointer(*where), "must be a flat list of numbers")])
+    return arr
+
+
+def as_matrix(value: object, where: tuple[str | int, ...]) -> np.ndarray:
+    """A JSON list of rows (lists of numbers or nulls) as an (n, k) float array."""
+    if not isinstance(value, list) or (value and not isinstance(value[0], list)):
+        raise invalid([FieldError(pointer(*where), "must be a list of rows, each a list of numbers")])
+    if not value:
+        raise invalid([FieldError(pointer(*where), "must not be empty")])
+    arr = _convert(value, where)
+    if arr.ndim != 2:
+        if arr.ndim == 1 and arr.dtype == object:
+            raise _ragged(value, where)
+        raise invalid([FieldError(pointer(*where), "must be a list of rows, each a list of numbers")])
+    return arr

@@ -1,0 +1,222 @@
+"""From a decoded JSON request to a validated design and fit options.
+
+Order of checks: the envelope (marshmallow, every field error in one answer), then the
+bulk numbers (numpy), then the rules between them (lengths, names, limits, missing
+values). Every failure is a 422 problem whose pointers name the offending values.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from marshmallow import ValidationError
+
+from ..settings import Settings
+from ..stats.design import INTERCEPT, Design, build_design
+from ..stats.fit import FitOptions
+from .arrays import MAX_POINTED, as_matrix, as_vector, invalid
+from .problems import FieldError, pointer
+from .schemas import FitRequestSchema, flatten_errors
+
+__all__ = ["FitRequest", "decode_fit"]
+
+_SCHEMA = FitRequestSchema()
+
+
+@dataclass(frozen=True)
+class FitRequest:
+    """A validated /v1/fit request. ``column_pointers`` maps design column names to pointers."""
+
+    design: Design
+    options: FitOptions
+    column_pointers: dict[str, str]
+
+
+def _load_envelope(body: Any) -> dict[str, Any]:
+    if not isinstance(body, dict):
+        raise invalid([FieldError("", "the request body must be a JSON object")])
+    try:
+        return _SCHEMA.load(body)
+    except ValidationError as err:
+        errors = flatten_errors(err.messages)
+        raise invalid(errors, f"{len(errors)} field(s) of the request are invalid: "
+                      + "; ".join(f"{e.pointer or '/'} {e.message}" for e in errors[:3]))
+
+
+def _check_limits(n: int, k: int, where: str, settings: Settings) -> None:
+    errors = []
+    if n > settings.max_rows:
+        errors.append(FieldError(where, f"has {n} rows, more than the limit of "
+                                 f"{settings.max_rows} (LINFER_MAX_ROWS)"))
+    if k > settings.max_columns:
+        errors.append(FieldError(where, f"has {k} design columns, more than the limit of "
+                                 f"{settings.max_columns} (LINFER_MAX_COLUMNS)"))
+    if n * k > settings.max_cells:
+        errors.append(FieldError(where, f"has {n} x {k} = {n * k} cells, more than the limit "
+                                 f"of {settings.max_cells} (LINFER_MAX_CELLS)"))
+    if errors:
+        raise invalid(errors)
+
+
+def _check_levels(levels: list[float], settings: Settings) -> tuple[float, ...]:
+    if len(levels) > settings.max_levels:
+        raise invalid([FieldError("/levels", f"has {len(levels)} levels, more than the limit "
+                                  f"of {settings.max_levels} (LINFER_MAX_LEVELS)")])
+    seen: dict[float, int] = {}
+    for i, lv in enumerate(levels):
+        if lv in seen:
+            raise invalid([FieldError(pointer("levels", i),
+                                      f"repeats level {lv:g} (also at /levels/{seen[lv]})")])
+        seen[lv] = i
+    return tuple(levels)
+
+
+def _check_weights(w: np.ndarray, n: int, where: tuple[str | int, ...]) -> None:
+    if w.shape[0] != n:
+        raise invalid([FieldError(pointer(*where), f"has {w.shape[0]} values for {n} rows")])
+    negative = np.flatnonzero(w < 0)
+    if negative.size:
+        raise invalid([FieldError(pointer(*where, int(i)), "must not be negative")
+                       for i in negative[:MAX_POINTED]])
+    if not np.any(w > 0):
+        raise invalid([FieldError(pointer(*where), "must have at least one positive weight")])
+
+
+def _reject_missing(arrays: list[tuple[np.ndarray, tuple[str | int, ...], bool]]) -> None:
+    """422 for null values; each entry is (array, pointer prefix, whether columns of a matrix)."""
+    errors: list[FieldError] = []
+    total = 0
+    for arr, where, _ in arrays:
+        mask = np.isnan(arr)
+        total += int(np.count_nonzero(mask))
+        for index in zip(*np.nonzero(mask)):
+            if len(errors) < MAX_POINTED:
+                errors.append(FieldError(pointer(*where, *map(int, index)),
+                                         "is missing (null); send a number, or set missing "
+                                         "to drop_rows"))
+    if errors:
+        raise invalid(errors, f"{total} value(s) are missing (null) and missing is 'reject'")
+
+
+def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool) -> list[str]:
+    names = data.get("column_names")
+    if names is None:
+        return [f"x{j + 1}" for j in range(k)]
+    if len(names) != k:
+        raise invalid([FieldError("/column_names",
+                                  f"has {len(names)} names for {k} design_matrix columns")])
+    seen: dict[str, int] = {}
+    for j, name in enumerate(names):
+        if name in seen:
+            raise invalid([FieldError(pointer("column_names", j),
+                                      f"repeats {name!r} (also at /column_names/{seen[name]})")])
+        if intercept and name == INTERCEPT:
+            raise invalid([FieldError(pointer("column_names", j),
+                                      "'intercept' names the column of ones the service adds; "
+                                      "rename the column or set intercept to false")])
+        seen[name] = j
+    return list(names)
+
+
+def _matrix_layout(data: dict[str, Any], settings: Settings):
+    x = as_matrix(data["design_matrix"], ("design_matrix",))
+    y = as_vector(data["response"], ("response",))
+    n, m = x.shape
+    if y.shape[0] != n:
+        raise invalid([FieldError("/response", f"response has {y.shape[0]} values, "
+                                  f"design_matrix has {n} rows")])
+    _check_limits(n, m + int(data["intercept"]), "/design_matrix", settings)
+    names = _names_for_matrix(data, m, data["intercept"])
+    w = None
+    if "weights" in data:
+        w = as_vector(data["weights"], ("weights",))
+        _check_weights(w, n, ("weights",))
+    if data["missing"] == "reject":
+        arrays = [(x, ("design_matrix",), True), (y, ("response",), False)]
+        if w is not None:
+            arrays.append((w, ("weights",), False))
+        _reject_missing(arrays)
+    where = {name: (pointer("column_names", j) if "column_names" in data
+                    else pointer("design_matrix", 0, j)) for j, name in enumerate(names)}
+    return x, y, w, names, where
+
+
+def _table_layout(data: dict[str, Any], settings: Settings):
+    table: dict[str, Any] = data["table"]  # the body's own dict: its column order is the caller's
+    response = data["response_column"]
+    if response not in table:
+        raise invalid([FieldError("/response_column",
+                                  f"names no column of table (columns: {', '.join(table)})")])
+    weight_col = data.get("weights") if isinstance(data.get("weights"), str) else None
+    if weight_col is not None:
+        if weight_col not in table:
+            raise invalid([FieldError("/weights", f"names no column of table "
+                                      f"(columns: {', '.join(table)})")])
+        if weight_col == response:
+            raise invalid([FieldError("/weights", "names the response column")])
+    if "predictor_columns" in data:
+        predictors = data["predictor_columns"]
+        seen: dict[str, int] = {}
+        for i, name in enumerate(predictors):
+            at = pointer("predictor_columns", i)
+            if name not in table:
+                raise invalid([FieldError(at, f"{name!r} names no column of table")])
+            if name == response:
+                raise invalid([FieldError(at, f"{name!r} is the response column")])
+            if name == weight_col:
+                raise invalid([FieldError(at, f"{name!r} is the weights column")])
+            if name in seen:
+                raise invalid([FieldError(at, f"repeats {name!r} (also at "
+                                          f"/predictor_columns/{seen[name]})")])
+            seen[name] = i
+    else:
+        predictors = [c for c in table if c not in (response, weight_col)]
+    if data["intercept"] and INTERCEPT in predictors:
+        raise invalid([FieldError(pointer("table", INTERCEPT),
+                                  "'intercept' names the column of ones the service adds; "
+                                  "rename the column or set intercept to false")])
+    y = as_vector(table[response], ("table", response))
+    n = y.shape[0]
+    _check_limits(n, len(predictors) + int(data["intercept"]), "/table", settings)
+    columns = []
+    for name in predictors:
+        col = as_vector(table[name], ("table", name))
+        if col.shape[0] != n:
+            raise invalid([FieldError(pointer("table", name), f"has {col.shape[0]} values; "
+                                      f"the response column {response!r} has {n}")])
+        columns.append(col)
+    x = np.column_stack(columns) if columns else np.empty((n, 0))
+    w = None
+    if weight_col is not None:
+        w = as_vector(table[weight_col], ("table", weight_col))
+        _check_weights(w, n, ("table", weight_col))
+    elif "weights" in data:
+        w = as_vector(data["weights"], ("weights",))
+        _check_weights(w, n, ("weights",))
+    if data["missing"] == "reject":
+        arrays = [(col, ("table", name), False) for col, name in zip(columns, predictors)]
+        arrays.append((y, ("table", response), False))
+        if w is not None:
+            arrays.append((w, ("table", weight_col) if weight_col else ("weights",), False))
+        _reject_missing(arrays)
+    where = {name: pointer("table", name) for name in predictors}
+    return x, y, w, predictors, where
+
+
+def decode_fit(body: Any, settings: Settings) -> FitRequest:
+    """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault."""
+    data = _load_envelope(body)
+    if "table" in data:
+        data["table"] = body["table"]
+    levels = _check_levels(data["levels"], settings)
+    layout = _table_layout if "table" in data else _matrix_layout
+    x, y, w, names, where = layout(data, settings)
+    design = build_design(x, y, tuple(names), intercept=data["intercept"], weights=w)
+    if data["intercept"]:
+        where[INTERCEPT] = "/intercept"
+    options = FitOptions(levels=levels, drop_aliased=data["rank_deficiency"] == "drop_aliased",
+                         extended_max_work=settings.extended_max_work,
+                         extended_below_digits=settings.extended_below_digits)
+    return FitRequest(design=design, options=options, column_pointers=where)

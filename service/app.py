@@ -1,0 +1,48 @@
+"""The application factory: ``create_app(settings) -> Flask``; nothing happens at import time.
+
+gunicorn calls it as ``service.app:create_app()``.
+"""
+
+from __future__ import annotations
+
+import re
+import uuid
+from typing import Mapping
+
+from flask import Flask, Response, g, request
+
+from . import settings as settings_module
+from .api import problems, routes
+from .settings import Settings
+
+__all__ = ["create_app"]
+
+_REQUEST_ID = re.compile(r"^[A-Za-z0-9._:-]{1,128}$")
+
+
+def _request_id() -> None:
+    given = request.headers.get("X-Request-ID", "")
+    g.request_id = given if _REQUEST_ID.match(given) else uuid.uuid4().hex
+
+
+def _tag(response: Response) -> Response:
+    response.headers["X-Request-ID"] = getattr(g, "request_id", None) or uuid.uuid4().hex
+    return response
+
+
+def create_app(settings: Settings | Mapping[str, object] | None = None) -> Flask:
+    """Build the app from the LINFER_* environment, overlaid by ``settings`` when given."""
+    if isinstance(settings, Settings):
+        resolved = settings
+    else:
+        resolved = settings_module.load()
+        if settings:
+            resolved = resolved.overlay(settings)
+    app = Flask("linfer")
+    app.config["LINFER_SETTINGS"] = resolved
+    app.config["MAX_CONTENT_LENGTH"] = resolved.max_body_bytes
+    app.before_request(_request_id)
+    app.after_request(_tag)
+    problems.init_app(app)
+    routes.init_app(app)
+    return app

@@ -1,0 +1,90 @@
+"""The design: predictors, intercept, response and weights, with unusable rows removed."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Design", "build_design", "INTERCEPT"]
+
+INTERCEPT = "intercept"
+
+
+@dataclass(frozen=True)
+class Design:
+    """The arrays a fit works on.
+
+    Attributes
+    ----------
+    matrix : (n, k) array
+        Design columns, the intercept column of ones first when there is one.
+    response : (n,) array
+    weights : (n,) array or None
+        Positive weights; None for ordinary least squares.
+    names : tuple of str
+        One name per design column (``"intercept"`` for the column of ones).
+    intercept : bool
+    rows_used : (n,) int array
+        Indices, into the rows as posted, of the rows in the fit.
+    rows_dropped_missing : int
+        Rows dropped because a value was missing (``missing="drop_rows"``).
+    rows_zero_weight : int
+        Rows left out because their weight is zero: they take no part in the fit.
+    """
+
+    matrix: np.ndarray
+    response: np.ndarray
+    weights: np.ndarray | None
+    names: tuple[str, ...]
+    intercept: bool
+    rows_used: np.ndarray
+    rows_dropped_missing: int
+    rows_zero_weight: int
+
+    @property
+    def n_observations(self) -> int:
+        return int(self.matrix.shape[0])
+
+
+def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str, ...], *,
+                 intercept: bool = True, weights: np.ndarray | None = None) -> Design:
+    """Assemble the design from validated arrays.
+
+    Parameters
+    ----------
+    predictors : (n, m) float array
+        Finite or NaN (missing); rows with a NaN anywhere (predictors, response or
+        weight) are dropped. The caller decides beforehand whether that is allowed.
+    response : (n,) float array
+    names : tuple of m str
+    intercept : bool
+        Prepend a column of ones named ``"intercept"``.
+    weights : (n,) float array or None
+        Non-negative; rows of weight zero are left out of the fit.
+    """
+    n = response.shape[0]
+    bad = np.isnan(response) | np.isnan(predictors).any(axis=1)
+    if weights is not None:
+        bad |= np.isnan(weights)
+    keep = ~bad
+    dropped_missing = int(np.count_nonzero(bad))
+    zero = 0
+    if weights is not None:
+        zero_mask = keep & (weights == 0)
+        zero = int(np.count_nonzero(zero_mask))
+        keep &= ~zero_mask
+    rows = np.flatnonzero(keep) if (dropped_missing or zero) else np.arange(n)
+    x = predictors[rows] if rows.size != n else predictors
+    y = response[rows] if rows.size != n else response
+    w = None
+    if weights is not None:
+        w = weights[rows] if rows.size != n else weights
+        if np.all(w == 1.0):
+            w = None
+    if intercept:
+        x = np.column_stack([np.ones(x.shape[0]), x])
+        names = (INTERCEPT,) + tuple(names)
+    return Design(matrix=np.ascontiguousarray(x, dtype=float), response=y, weights=w,
+                  names=tuple(names), intercept=intercept, rows_used=rows,
+                  rows_dropped_missing=dropped_missing, rows_zero_weight=zero)

@@ -1,0 +1,177 @@
+"""One fit from design to inference: solve, infer, assess, and say what the caller must know."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .conditioning import Conditioning, assess
+from .design import Design
+from .inference import Inference, infer
+from .lstsq import Alias, LeastSquares, solve
+from .notices import Notice
+
+__all__ = ["FitOptions", "FitResult", "Numerics", "TooFewObservations", "fit",
+           "describe_alias"]
+
+FEW_DIGITS = 8.0
+
+
+class TooFewObservations(Exception):
+    """Fewer observations than design columns: the coefficients are not determined."""
+
+    def __init__(self, n: int, k: int):
+        super().__init__(f"{n} observations for {k} design columns")
+        self.n = n
+        self.k = k
+
+
+@dataclass(frozen=True)
+class FitOptions:
+    levels: tuple[float, ...] = (0.95,)
+    drop_aliased: bool = False
+    extended_max_work: int = 200_000
+    extended_below_digits: float = 13.5
+
+
+@dataclass(frozen=True)
+class Numerics:
+    """How the answer was computed and how many of its digits it vouches for."""
+
+    method: str
+    working_digits: float
+    estimated_correct_digits: float
+
+
+@dataclass(frozen=True)
+class FitResult:
+    design: Design
+    solution: LeastSquares
+    inference: Inference
+    conditioning: Conditioning
+    numerics: Numerics
+    notices: tuple[Notice, ...]
+
+
+def describe_alias(alias: Alias, names: tuple[str, ...]) -> str:
+    """``"door_openings = 2 * pallets_received - 1 * intercept"`` (or ``"... is all zero"``)."""
+    name = names[alias.column]
+    if not alias.relation:
+        return f"{name} is all zero"
+    parts = []
+    for i, (index, multiplier) in enumerate(alias.relation):
+        sign = "-" if multiplier < 0 else "+"
+        text = f"{abs(multiplier):.6g} * {names[index]}"
+        parts.append(("- " if sign == "-" else "") + text if i == 0 else f"{sign} {text}")
+    return f"{name} = " + " ".join(parts)
+
+
+def _column_spread(design: Design) -> np.ndarray | None:
+    """``sqrt(sum w (x_j - xbar_j)^2)`` per column, scaled against overflow; NaN for the intercept."""
+    if not design.intercept:
+        return None
+    x = design.matrix
+    w = design.weights
+    big = np.max(np.abs(x), axis=0)
+    big = np.where(big > 0, big, 1.0)
+    xs = x / big
+    if w is None:
+        dev = xs - xs.mean(axis=0)
+        ss = np.einsum("ij,ij->j", dev, dev)
+    else:
+        dev = xs - (w @ xs) / w.sum()
+        ss = np.einsum("i,ij,ij->j", w, dev, dev)
+    spread = np.sqrt(ss) * big
+    spread[0] = np.nan
+    return spread
+
+
+def _notices(design: Design, result: Inference, cond: Conditioning,
+             solution: LeastSquares) -> list[Notice]:
+    out: list[Notice] = []
+    names = design.names
+    if design.rows_dropped_missing:
+        out.append(Notice("rows_dropped", f"{design.rows_dropped_missing} rows with a missing "
+                          "value were dropped before the fit (missing: drop_rows)."))
+    if design.rows_zero_weight:
+        out.append(Notice("zero_weights", f"{design.rows_zero_weight} rows have weight 0 and "
+                          "take no part in the fit; they are not counted in n_observations."))
+    for alias in cond.aliased:
+        out.append(Notice(
+            "aliased_column",
+            f"{describe_alias(alias, names)}: its coefficient is not estimable and was left out "
+            "(rank_deficiency: drop_aliased). Remove or recode the column to silence this.",
+            column=names[alias.column]))
+    if result.residual_df == 0:
+        out.append(Notice("no_residual_df", f"{result.n_observations} observations and "
+                          f"{result.n_parameters} parameters leave no residual degrees of freedom: "
+                          "the estimates interpolate the data, and standard errors, tests and "
+                          "intervals are undefined (null). Collect more observations."))
+    elif result.perfect_fit:
+        out.append(Notice("perfect_fit", "The residuals are at the rounding level of the "
+                          "response: the model reproduces the data exactly, so standard errors "
+                          "are 0 and t statistics, p values and the overall F test are undefined "
+                          "(null). Check that the response is not computed from the predictors."))
+    if design.intercept and solution.total_norm == 0:
+        out.append(Notice("constant_response", "The response is constant: there is no "
+                          "variation to explain, so R squared is undefined (null)."))
+    if not design.intercept:
+        out.append(Notice("uncentered", "The model has no intercept: the total sum of squares, "
+                          "R squared and the overall F test are about zero (uncentered), not "
+                          "about the mean, and are not comparable with a model that has one."))
+    elif result.overall_f_test.numerator_df == 0:
+        out.append(Notice("intercept_only", "The model has only an intercept: there is no "
+                          "overall F test."))
+    for s in cond.collinear_sets:
+        out.append(Notice("near_collinear", (
+            f"Near-collinear columns {', '.join(s.columns)} (condition index "
+            f"{s.condition_index:.3g}): their estimates are unstable and their standard "
+            "errors inflated. Centre or rescale the predictors, drop or combine one of "
+            "them, or collect data in which they vary more independently.")))
+    if cond.status == "ill_conditioned" and not cond.collinear_sets:
+        out.append(Notice("ill_conditioned", (
+            f"The design's condition number is {cond.condition_number:.3g} (above 30): small "
+            "changes in the data can move the estimates a lot. Centre or rescale the "
+            "predictors, or drop redundant ones.")))
+    digits = solution.estimated_correct_digits
+    if digits < FEW_DIGITS:
+        out.append(Notice("few_correct_digits", (
+            f"Only about {max(digits, 0):.1f} significant digits of the estimates can be "
+            "vouched for (the problem is too large for the extended-precision path or too "
+            "ill-conditioned). Centre and rescale the predictors, or send a smaller design.")))
+    for c in result.coefficients:
+        if c.p_value == 0 and math.isfinite(c.t_statistic):
+            out.append(Notice("p_value_underflow", f"The p value of {c.name} is below the "
+                              "smallest double (about 1e-308) and is reported as 0.",
+                              column=c.name))
+    return out
+
+
+def fit(design: Design, options: FitOptions) -> FitResult:
+    """Fit ``y = X beta + e`` by weighted least squares and infer.
+
+    Raises
+    ------
+    TooFewObservations
+        ``n < k`` (after dropped rows).
+    RankDeficient
+        Aliased columns and ``options.drop_aliased`` is false.
+    """
+    n, k = design.matrix.shape
+    if n < k:
+        raise TooFewObservations(n, k)
+    solution = solve(design.matrix, design.response, design.weights,
+                     centered=design.intercept, drop_aliased=options.drop_aliased,
+                     extended_max_work=options.extended_max_work,
+                     extended_below_digits=options.extended_below_digits)
+    log_w = 0.0 if design.weights is None else math.fsum(np.log(design.weights).tolist())
+    result = infer(solution, design.names, n, centered=design.intercept,
+                   levels=options.levels, log_weight_sum=log_w,
+                   column_spread=_column_spread(design))
+    cond = assess(solution, design.names)
+    numerics = Numerics(method=solution.method, working_digits=solution.working_digits,
+                        estimated_correct_digits=solution.estimated_correct_digits)
+    return FitResult(design=design, solution=solution, inference=result, conditioning=cond,
+                     numerics=numerics, notices=tuple(_notices(design, result, cond, solution)))

@@ -1,0 +1,199 @@
+"""Classical inference for a least-squares fit: the coefficient table, fit statistics, overall F.
+
+Undefined figures are NaN here; the web layer writes them as null, beside a warning
+that says why. Model: ``y = X beta + e`` with independent errors of mean zero and
+variance ``sigma^2 / w_i``, normally distributed for the t and F reference
+distributions to hold exactly.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .distributions import f_upper_p, t_quantile, t_two_sided_p
+from .lstsq import EPS, LeastSquares
+
+__all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "infer",
+           "is_perfect_fit"]
+
+
+@dataclass(frozen=True)
+class Interval:
+    """A two-sided confidence interval at ``level``."""
+
+    level: float
+    lower: float
+    upper: float
+
+
+@dataclass(frozen=True)
+class Coefficient:
+    """One row of the coefficient table.
+
+    ``t_statistic = estimate / standard_error`` tests ``beta_j = 0``;
+    ``p_value = P(|T| >= |t|)`` with T ~ t(residual_df); each interval is
+    ``estimate +- t_{(1+level)/2, residual_df} * standard_error``.
+    """
+
+    name: str
+    estimable: bool
+    estimate: float
+    standard_error: float
+    t_statistic: float
+    p_value: float
+    intervals: tuple[Interval, ...]
+    vif: float
+
+
+@dataclass(frozen=True)
+class FitStatistics:
+    """Goodness of fit.
+
+    With an intercept the total sum of squares is about the weighted mean
+    (``centered``); without one it is about zero (uncentered), and so are R squared
+    and the overall F test. ``r_squared = SSR / (SSR + RSS)`` (equal to
+    ``1 - RSS/TSS``, but without cancellation);
+    ``adjusted_r_squared = 1 - (1 - R^2) (n - c) / (n - p)`` with c = 1 when centered.
+    ``log_likelihood = -n/2 (log(2 pi RSS / n) + 1) + 1/2 sum log w_i`` (Gaussian errors,
+    the maximum-likelihood variance RSS/n); ``aic = -2 L + 2 (p + 1)``,
+    ``bic = -2 L + log(n) (p + 1)``, the error variance counted as a parameter.
+    """
+
+    r_squared: float
+    adjusted_r_squared: float
+    residual_standard_deviation: float
+    residual_sum_of_squares: float
+    regression_sum_of_squares: float
+    total_sum_of_squares: float
+    log_likelihood: float
+    aic: float
+    bic: float
+    centered: bool
+
+
+@dataclass(frozen=True)
+class FTest:
+    """``statistic ~ F(numerator_df, denominator_df)`` under the null; ``p_value = P(F >= statistic)``."""
+
+    statistic: float
+    numerator_df: float
+    denominator_df: float
+    p_value: float
+
+
+@dataclass(frozen=True)
+class Inference:
+    n_observations: int
+    n_parameters: int
+    residual_df: int
+    coefficients: tuple[Coefficient, ...]
+    fit: FitStatistics
+    overall_f_test: FTest
+    perfect_fit: bool
+
+
+def is_perfect_fit(solution: LeastSquares, n: int) -> bool:
+    """Residuals at the rounding level of the response: ``|r| <= 8 n eps |sqrt(W) y|``."""
+    return solution.residual_norm <= 8 * n * EPS * solution.response_norm
+
+
+def _vif(solution: LeastSquares, column_spread: np.ndarray | None) -> np.ndarray:
+    """``VIF_j = [(X'WX)^-1]_jj * sum_i w_i (x_ij - xbar_j)^2`` (with an intercept only).
+
+    This equals ``1 / (1 - R_j^2)`` from the regression of column j on the others
+    (Belsley, Kuh and Welsch 1980, section 3.2).
+    """
+    k = solution.coefficients.shape[0]
+    if column_spread is None:
+        return np.full(k, np.nan)
+    with np.errstate(over="ignore", invalid="ignore"):
+        return (solution.root_diagonal * column_spread) ** 2
+
+
+def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: bool,
+          levels: tuple[float, ...], log_weight_sum: float = 0.0,
+          column_spread: np.ndarray | None = None) -> Inference:
+    """The coefficient table and fit statistics of a solved least-squares problem.
+
+    Parameters
+    ----------
+    solution : LeastSquares
+    names : k column names
+    n : number of observations in the fit (positive weight)
+    centered : whether the model has an intercept
+    levels : confidence levels in (0, 1)
+    log_weight_sum : ``sum log w_i`` for the log likelihood (0 without weights)
+    column_spread : (k,) ``sqrt(sum w (x_j - xbar_j)^2)`` per column, for VIF (with an
+        intercept; NaN for the intercept itself), or None
+    """
+    p = solution.rank
+    df = n - p
+    perfect = is_perfect_fit(solution, n)
+    rn, gn = solution.residual_norm, solution.regression_norm
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        sigma = rn / math.sqrt(df) if df > 0 else math.nan
+        if perfect and df > 0:
+            se = np.where(solution.estimable, 0.0, np.nan)
+            t = np.full_like(se, np.nan)
+            pv = np.full_like(se, np.nan)
+        elif df > 0:
+            se = sigma * solution.root_diagonal
+            t = solution.coefficients / se
+            pv = t_two_sided_p(t, df)
+        else:
+            se = t = pv = np.full(solution.coefficients.shape, np.nan)
+        quantiles = [float(-t_quantile((1.0 - lv) / 2.0, df)) if df > 0 else math.nan
+                     for lv in levels]
+        vif = _vif(solution, column_spread)
+    coefficients = []
+    for j, name in enumerate(names):
+        b = float(solution.coefficients[j])
+        intervals = tuple(Interval(lv, b - q * float(se[j]), b + q * float(se[j]))
+                          for lv, q in zip(levels, quantiles))
+        coefficients.append(Coefficient(
+            name=name, estimable=bool(solution.estimable[j]), estimate=b,
+            standard_error=float(se[j]), t_statistic=float(t[j]), p_value=float(pv[j]),
+            intervals=intervals, vif=float(vif[j])))
+
+    c = 1 if centered else 0
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        if gn == 0 and rn == 0:
+            r2 = math.nan
+            one_minus = math.nan
+        elif gn == 0:
+            r2, one_minus = 0.0, 1.0
+        else:
+            ratio = rn / gn
+            r2 = 1.0 / (1.0 + ratio * ratio)
+            one_minus = ratio * ratio / (1.0 + ratio * ratio)
+        adj = 1.0 - one_minus * (n - c) / df if df > 0 else math.nan
+        rss = rn * rn
+        if n > 0 and rn > 0:
+            log_lik = (-0.5 * n * (math.log(2 * math.pi) + 2 * math.log(rn) - math.log(n) + 1)
+                       + 0.5 * log_weight_sum)
+        else:
+            log_lik = math.nan
+        n_par = p + 1
+        aic = -2 * log_lik + 2 * n_par
+        bic = -2 * log_lik + math.log(n) * n_par if n > 0 else math.nan
+        dfn = p - c
+        if dfn > 0 and df > 0 and rn > 0 and not perfect:
+            q = gn / rn
+            f_stat = q * q * df / dfn
+            f_p = float(f_upper_p(f_stat, dfn, df))
+        else:
+            f_stat = f_p = math.nan
+    fit = FitStatistics(
+        r_squared=r2, adjusted_r_squared=adj, residual_standard_deviation=sigma,
+        residual_sum_of_squares=rss, regression_sum_of_squares=gn * gn,
+        total_sum_of_squares=solution.total_norm ** 2, log_likelihood=log_lik,
+        aic=aic, bic=bic, centered=centered)
+    return Inference(
+        n_observations=n, n_parameters=p, residual_df=df,
+        coefficients=tuple(coefficients), fit=fit,
+        overall_f_test=FTest(statistic=f_stat, numerator_df=float(dfn),
+                             denominator_df=float(df), p_value=f_p),
+        perfect_fit=perfect)

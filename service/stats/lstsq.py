@@ -1,0 +1,445 @@
+"""Weighted least squares: pivoted Householder QR, and an extended-precision path.
+
+The solver never forms X'X in double precision. Its steps:
+
+1. Row weighting and exact column equilibration: each column of ``sqrt(W) X`` and the
+   response are scaled by powers of two (exact in binary floating point), so that
+   columns of 1e200 and 1e-200 meet on equal terms and nothing over- or underflows.
+2. Householder QR with column pivoting (LAPACK ``dgeqp3``). The numerical rank is the
+   number of diagonal entries of R with ``|R_ii| > max(n, k) * eps * |R_11|`` (the
+   tolerance LAPACK's and NumPy's rank routines use for singular values; Golub and
+   Van Loan, Matrix Computations, 4th ed., 5.4.2).
+3. Aliased columns are found in the order the caller posted them: a column is aliased
+   when its distance from the span of the earlier kept columns is below the same
+   tolerance; the linear relation that makes it so is returned.
+4. The solution, residuals in extended precision (80-bit), sums of squares by exact
+   (``math.fsum``) summation, and an estimate of the correct digits from the
+   first-order forward error bound of least squares (Higham, Accuracy and Stability of
+   Numerical Algorithms, 2nd ed., Theorem 20.1):
+   ``|db|/|b| <~ eps (kappa + kappa^2 |r| / (|A| |b|))``.
+5. When that estimate falls short and the problem is small enough, the answer is
+   recomputed in multiple-precision arithmetic (mpmath) from the data as posted,
+   with a working precision of ``30 + 2 log10(kappa)`` decimal digits: the normal
+   equations are then harmless, because their rounding error ``10^-dps kappa^2`` is far
+   below double precision.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import mpmath
+import numpy as np
+from scipy.linalg import lapack, solve_triangular
+
+__all__ = ["Alias", "LeastSquares", "RankDeficient", "solve"]
+
+EPS = float(np.finfo(float).eps)
+FULL_DIGITS = 15.9
+
+
+@dataclass(frozen=True)
+class Alias:
+    """A design column that is (numerically) a linear combination of kept columns.
+
+    ``column`` equals ``sum(multiplier * column_i for column_i, multiplier in relation)``,
+    all indices into the design as posted. An empty relation means the column is zero.
+    """
+
+    column: int
+    relation: tuple[tuple[int, float], ...]
+
+
+class RankDeficient(Exception):
+    """The design has aliased columns and the caller asked not to drop them."""
+
+    def __init__(self, aliases: tuple[Alias, ...], rank: int, n_columns: int):
+        super().__init__(f"design rank {rank} is below its {n_columns} columns")
+        self.aliases = aliases
+        self.rank = rank
+        self.n_columns = n_columns
+
+
+@dataclass(frozen=True)
+class LeastSquares:
+    """The weighted least-squares solution and what is needed to judge it.
+
+    Attributes
+    ----------
+    coefficients : (k,) array
+        ``b = argmin sum_i w_i (y_i - x_i b)^2``; NaN for aliased columns.
+    root_diagonal : (k,) array
+        ``sqrt(diag((X'WX)^-1))`` for the kept columns, NaN for aliased ones. A
+        standard error is this times the residual standard deviation.
+    covariance_factor : (k, k) array
+        ``(X'WX)^-1`` over the kept columns (NaN rows and columns for aliased ones);
+        entries that overflow double precision are infinite.
+    fitted, residuals : (n,) arrays
+        ``X b`` and ``y - X b`` (unweighted).
+    residual_norm, regression_norm, total_norm : float
+        Square roots of ``sum w r^2``, of ``sum w (yhat - ybar)^2`` (or ``sum w yhat^2``
+        when not centered) and of ``sum w (y - ybar)^2`` (or ``sum w y^2``). Norms, not
+        sums of squares, so that a response near 1e200 does not overflow.
+    response_norm : float
+        ``sqrt(sum w y^2)``.
+    rank, estimable, aliases
+        Numerical rank, a mask of the kept columns, and the aliased columns.
+    singular_values : (rank,) array
+        Singular values of the kept columns of the weighted design, each column
+        scaled to unit length, largest first.
+    right_singular_vectors : (rank, rank) array
+        The matching right singular vectors as columns (rows follow the kept columns).
+    rank_tolerance : float
+        The tolerance on ``|R_ii|`` relative to ``|R_11|``: ``max(n, k) * eps``.
+    condition_number : float
+        ``sigma_max / sigma_min`` of the unit-column design over the kept columns.
+    method : str
+        ``"householder_qr"`` or ``"extended_precision"``.
+    working_digits : float
+        Decimal digits of the arithmetic that produced the answer.
+    estimated_correct_digits : float
+        Estimated correct significant digits of the estimates and standard errors.
+    """
+
+    coefficients: np.ndarray
+    root_diagonal: np.ndarray
+    covariance_factor: np.ndarray
+    fitted: np.ndarray
+    residuals: np.ndarray
+    residual_norm: float
+    regression_norm: float
+    total_norm: float
+    response_norm: float
+    rank: int
+    estimable: np.ndarray
+    aliases: tuple[Alias, ...]
+    singular_values: np.ndarray
+    right_singular_vectors: np.ndarray
+    rank_tolerance: float
+    condition_number: float
+    method: str
+    working_digits: float
+    estimated_correct_digits: float
+
+
+def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
+    """Exponents ``e`` such that ``a[:, j] * 2**-e[j]`` has a 2-norm in [0.5, 1)."""
+    big = np.max(np.abs(a), axis=0)
+    _, e_big = np.frexp(big)
+    pre = np.ldexp(a, -e_big)
+    norms = np.sqrt(np.einsum("ij,ij->j", pre, pre))
+    _, e_norm = np.frexp(norms)
+    exponents = e_big + e_norm
+    return np.where(big > 0, exponents, 0).astype(np.int64)
+
+
+def _householder(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pivoted Householder QR of ``a`` (n x k, n >= k): the packed factor, pivots, tau."""
+    k = a.shape[1]
+    _, _, _, work, _ = lapack.dgeqp3(a, lwork=-1)
+    lwork = max(int(work[0]), 3 * (k + 1))
+    qr, jpvt, tau, _, info = lapack.dgeqp3(np.asfortranarray(a), lwork=lwork)
+    if info != 0:
+        raise ArithmeticError(f"dgeqp3 failed with info={info}")
+    return qr, jpvt - 1, tau
+
+
+def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """``Q' v`` for the Householder factor held in ``qr`` and ``tau``."""
+    c = np.asfortranarray(v.reshape(-1, 1))
+    _, work, _ = lapack.dormqr("L", "T", qr, tau, c, lwork=-1)
+    cq, _, info = lapack.dormqr("L", "T", qr, tau, c, lwork=max(int(work[0]), 1))
+    if info != 0:
+        raise ArithmeticError(f"dormqr failed with info={info}")
+    return cq[:, 0]
+
+
+def _sequential_kept(b: np.ndarray, tolerance: float) -> list[int]:
+    """Columns of ``b`` kept in order: each one farther than ``tolerance`` from the span of those before.
+
+    Gram-Schmidt with one reorthogonalisation ("twice is enough"; Giraud, Langou and
+    Rozloznik 2005), on the k x k factor R whose columns have the same linear
+    relations as the design's.
+    """
+    kept: list[int] = []
+    basis = np.zeros((b.shape[0], 0))
+    for j in range(b.shape[1]):
+        v = b[:, j].copy()
+        for _ in range(2):
+            v -= basis @ (basis.T @ v)
+        distance = float(np.linalg.norm(v))
+        if distance > tolerance:
+            kept.append(j)
+            basis = np.column_stack([basis, v / distance])
+    return kept
+
+
+def _aliases(r_full: np.ndarray, pivots: np.ndarray, rank: int, tolerance: float,
+             exponents: np.ndarray) -> tuple[list[int], tuple[Alias, ...]]:
+    k = r_full.shape[1]
+    b = np.empty_like(r_full)
+    b[:, pivots] = r_full
+    kept = _sequential_kept(b, tolerance)
+    if len(kept) != rank:
+        kept = sorted(int(p) for p in pivots[:rank])
+    aliased = [j for j in range(k) if j not in kept]
+    found = []
+    basis = b[:, kept]
+    for j in aliased:
+        if not np.any(b[:, j]):
+            found.append(Alias(column=j, relation=()))
+            continue
+        c, *_ = np.linalg.lstsq(basis, b[:, j], rcond=None)
+        big = np.max(np.abs(c))
+        relation = tuple(
+            (kept[i], float(np.ldexp(c[i], int(exponents[j] - exponents[kept[i]]))))
+            for i in range(len(kept)) if abs(c[i]) > 1e-9 * big)
+        found.append(Alias(column=j, relation=relation))
+    return kept, tuple(found)
+
+
+def _fsum_sq(v: np.ndarray, w: np.ndarray | None = None) -> float:
+    return math.fsum((v * v).tolist() if w is None else (w * v * v).tolist())
+
+
+def _centre(y: np.ndarray, w: np.ndarray | None) -> float:
+    if w is None:
+        return math.fsum(y.tolist()) / y.size
+    return math.fsum((w * y).tolist()) / math.fsum(w.tolist())
+
+
+@dataclass(frozen=True)
+class _Core:
+    """The answer in scaled units, from either path."""
+
+    coefficients: np.ndarray  # scaled, kept columns, in kept order
+    covariance: np.ndarray  # scaled (A'A)^-1 over kept columns
+    residuals: np.ndarray  # scaled, unweighted
+    residual_ss: float
+    regression_ss: float
+    total_ss: float
+    working_digits: float
+    digits: float
+
+
+def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray | None,
+                 w: np.ndarray | None, centered: bool, qr: np.ndarray, pivots: np.ndarray,
+                 tau: np.ndarray, kappa: float, sigma_max: float) -> _Core:
+    k = a.shape[1]
+    r11 = np.triu(qr[:k, :k])
+    z = _apply_qt(qr, tau, ys_w)[:k]
+    bp = solve_triangular(r11, z)
+    bs = np.empty(k)
+    bs[pivots] = bp
+    rw = (ys_w.astype(np.longdouble) - a.astype(np.longdouble) @ bs.astype(np.longdouble))
+    rw = rw.astype(float)
+    residuals = rw if sw is None else rw / sw
+    rinv = solve_triangular(r11, np.eye(k))
+    cp = rinv @ rinv.T
+    cov = np.empty((k, k))
+    cov[np.ix_(pivots, pivots)] = cp
+    rss = _fsum_sq(rw)
+    fitted = ys - residuals
+    if centered:
+        ybar = _centre(ys, w)
+        reg_ss = _fsum_sq(fitted - ybar, w)
+        tot_ss = _fsum_sq(ys - ybar, w)
+    else:
+        reg_ss = _fsum_sq(fitted, w)
+        tot_ss = _fsum_sq(ys, w)
+    b_norm = float(np.linalg.norm(bs))
+    r_norm = math.sqrt(rss)
+    y_norm = float(np.linalg.norm(ys_w))
+    root = np.sqrt(np.diag(cov))
+    # Component-wise first-order bound: a backward error dA of size eps |A| in A and
+    # dy of size eps |y| in y moves b by (A'A)^-1 (dA' r) - A^+ (dA b - dy)
+    # (Higham 2002, section 20.1), whose j-th entry is at most
+    # eps (|C_j.| |A| |r| + sqrt(C_jj) (|A| |b| + |y|)), with C = (A'A)^-1.
+    row = np.linalg.norm(cov, axis=1)
+    spread = EPS * math.sqrt(k) * (row * sigma_max * r_norm
+                                   + root * (sigma_max * b_norm + y_norm))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        err_b = float(np.max(np.where(bs != 0, spread / np.abs(bs), 0.0)))
+    err_se = EPS * math.sqrt(k) * kappa
+    # The residual norm carries the rounding of y - X b in 80-bit arithmetic and
+    # the second-order effect of the error in b; relative to a tiny residual
+    # (a near-perfect fit) both grow, and the digits estimate says so.
+    if r_norm > 0:
+        move = EPS * math.sqrt(k) * (sigma_max * b_norm + y_norm + kappa * r_norm)
+        err_sigma = (float(np.finfo(np.longdouble).eps) * y_norm / r_norm
+                     + 0.5 * (move / r_norm) ** 2)
+    else:
+        err_sigma = 1.0 if y_norm > 0 else 0.0
+    worst = max(err_b, err_se, err_sigma, EPS / 2)
+    return _Core(coefficients=bs, covariance=cov, residuals=residuals, residual_ss=rss,
+                 regression_ss=reg_ss, total_ss=tot_ss, working_digits=15.95,
+                 digits=min(FULL_DIGITS, -math.log10(worst)))
+
+
+def _extended_path(xs: np.ndarray, ys: np.ndarray, w: np.ndarray | None, centered: bool,
+                   kappa: float) -> _Core:
+    n, k = xs.shape
+    dps = int(min(150, max(34, 30 + 2 * math.log10(max(kappa, 1.0)))))
+    mpf = mpmath.mpf
+    fdot = mpmath.fdot
+    fsum = mpmath.fsum
+    with mpmath.workprec(int(dps * 3.33) + 8):
+        cols = [[mpf(v) for v in xs[:, j].tolist()] for j in range(k)]
+        y = [mpf(v) for v in ys.tolist()]
+        if w is None:
+            wcols = cols
+            wy = y
+            wsum = mpf(n)
+        else:
+            wl = [mpf(v) for v in w.tolist()]
+            wcols = [[wi * c for wi, c in zip(wl, col)] for col in cols]
+            wy = [wi * yi for wi, yi in zip(wl, y)]
+            wsum = fsum(wl)
+        g = mpmath.matrix(k, k)
+        for i in range(k):
+            for j in range(i, k):
+                g[i, j] = g[j, i] = fdot(wcols[i], cols[j])
+        c = mpmath.matrix([fdot(wcols[i], y) for i in range(k)])
+        ginv = mpmath.inverse(g)
+        b = ginv * c
+        bl = [b[i] for i in range(k)]
+        rows = list(zip(*cols))
+        fitted = [fdot(row, bl) for row in rows]
+        resid = [yi - fi for yi, fi in zip(y, fitted)]
+        weights = [mpf(1)] * n if w is None else wl
+        rss = fdot([wi * ri for wi, ri in zip(weights, resid)], resid)
+        if centered:
+            ybar = fsum(wy) / wsum
+            dev_f = [fi - ybar for fi in fitted]
+            dev_y = [yi - ybar for yi in y]
+        else:
+            dev_f, dev_y = fitted, y
+        reg = fdot([wi * d for wi, d in zip(weights, dev_f)], dev_f)
+        tot = fdot([wi * d for wi, d in zip(weights, dev_y)], dev_y)
+        coefficients = np.array([float(v) for v in bl])
+        covariance = np.array([[float(ginv[i, j]) for j in range(k)] for i in range(k)])
+        residuals = np.array([float(v) for v in resid])
+        core = _Core(coefficients=coefficients, covariance=covariance, residuals=residuals,
+                     residual_ss=float(rss), regression_ss=float(reg), total_ss=float(tot),
+                     working_digits=float(dps),
+                     digits=min(FULL_DIGITS, dps - 2 * math.log10(max(kappa, 1.0)) - 2))
+    return core
+
+
+def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
+          centered: bool, drop_aliased: bool = False, extended_max_work: int = 200_000,
+          extended_below_digits: float = 13.5) -> LeastSquares:
+    """Solve the weighted least-squares problem ``min sum_i w_i (y_i - x_i b)^2``.
+
+    Parameters
+    ----------
+    x : (n, k) array
+        The design, intercept column included when there is one; finite, n >= k.
+    y : (n,) array
+        The response, finite.
+    weights : (n,) array or None
+        Positive finite weights (rows of weight zero are removed before this call).
+    centered : bool
+        Whether sums of squares are about the (weighted) mean of y (a model with an
+        intercept) or about zero.
+    drop_aliased : bool
+        Drop aliased columns and fit the rest; otherwise raise :class:`RankDeficient`.
+    extended_max_work, extended_below_digits
+        Take the extended-precision path when the double-precision estimate of
+        correct digits is below ``extended_below_digits`` and ``n * k**2`` is at most
+        ``extended_max_work``.
+
+    Returns
+    -------
+    LeastSquares
+
+    Raises
+    ------
+    RankDeficient
+        The design's numerical rank is below its column count and ``drop_aliased``
+        is false.
+
+    Notes
+    -----
+    See the module docstring for the algorithm and its references.
+    """
+    n, k = x.shape
+    sw = None if weights is None else np.sqrt(weights)
+    xw = x if sw is None else x * sw[:, None]
+    e_col = _power_of_two_exponents(xw)
+    e_y = int(_power_of_two_exponents(y.reshape(-1, 1) if sw is None
+                                      else (y * sw).reshape(-1, 1))[0])
+    ys = np.ldexp(y, -e_y)
+    ys_w = ys if sw is None else ys * sw
+    a = np.ldexp(xw, -e_col[None, :])
+
+    qr, pivots, tau = _householder(a)
+    diag = np.abs(np.diag(qr[:k, :k]))
+    rank_tolerance = max(n, k) * EPS
+    threshold = rank_tolerance * (diag[0] if k else 0.0)
+    rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
+    r_full = np.triu(qr[:k, :k])
+
+    kept = list(range(k))
+    aliases: tuple[Alias, ...] = ()
+    if rank < k:
+        kept, aliases = _aliases(r_full, pivots, rank, threshold, e_col)
+        if not drop_aliased:
+            raise RankDeficient(aliases, rank, k)
+
+    if len(kept) < k:
+        a_kept = a[:, kept]
+        qr, pivots, tau = _householder(a_kept)
+    else:
+        a_kept = a
+    rk = np.triu(qr[:len(kept), :len(kept)])
+    unit = np.empty_like(rk)
+    unit[:, pivots] = rk
+    norms = np.linalg.norm(unit, axis=0)
+    unit /= np.where(norms > 0, norms, 1.0)
+    if len(kept):
+        _, singular, vt = np.linalg.svd(unit)
+        kappa = float(singular[0] / singular[-1])
+        sigma_max = float(np.linalg.norm(rk, 2))
+    else:
+        singular, vt, kappa, sigma_max = np.zeros(0), np.zeros((0, 0)), 1.0, 1.0
+
+    if len(kept):
+        core = _double_path(a_kept, ys_w, ys, sw, weights, centered, qr, pivots, tau,
+                            kappa, sigma_max)
+        method = "householder_qr"
+        if (core.digits < extended_below_digits
+                and n * len(kept) ** 2 <= extended_max_work):
+            xs = np.ldexp(x[:, kept], -e_col[kept][None, :])
+            core = _extended_path(xs, ys, weights, centered, kappa)
+            method = "extended_precision"
+    else:
+        method = "householder_qr"
+        core = _Core(np.zeros(0), np.zeros((0, 0)), ys.copy(), _fsum_sq(ys, weights), 0.0,
+                     _fsum_sq(ys, weights), 15.95, FULL_DIGITS)
+
+    kept_idx = np.array(kept, dtype=int)
+    e_kept = e_col[kept_idx]
+    coefficients = np.full(k, np.nan)
+    root_diagonal = np.full(k, np.nan)
+    covariance = np.full((k, k), np.nan)
+    with np.errstate(over="ignore"):
+        coefficients[kept_idx] = np.ldexp(core.coefficients, e_y - e_kept)
+        root_diagonal[kept_idx] = np.ldexp(np.sqrt(np.diag(core.covariance)), -e_kept)
+        covariance[np.ix_(kept_idx, kept_idx)] = np.ldexp(
+            core.covariance, -(e_kept[:, None] + e_kept[None, :]))
+        residuals = np.ldexp(core.residuals, e_y)
+    estimable = np.zeros(k, dtype=bool)
+    estimable[kept_idx] = True
+    return LeastSquares(
+        coefficients=coefficients, root_diagonal=root_diagonal,
+        covariance_factor=covariance, fitted=y - residuals, residuals=residuals,
+        residual_norm=float(np.ldexp(math.sqrt(core.residual_ss), e_y)),
+        regression_norm=float(np.ldexp(math.sqrt(core.regression_ss), e_y)),
+        total_norm=float(np.ldexp(math.sqrt(core.total_ss), e_y)),
+        response_norm=float(np.ldexp(np.linalg.norm(ys_w), e_y)),
+        rank=len(kept), estimable=estimable, aliases=aliases, singular_values=singular,
+        right_singular_vectors=vt.T,
+        rank_tolerance=rank_tolerance, condition_number=kappa, method=method,
+        working_digits=core.working_digits, estimated_correct_digits=core.digits)
