@@ -1,0 +1,29 @@
+"""The gunicorn settings of the service: the one place they live.
+
+Used as ``gunicorn -c python:service.gunicorn_config 'service.app:create_app()'``
+(``linfer serve`` does exactly that; docker/gunicorn.conf.py imports this module).
+Each value can be overridden by an environment variable or a command-line flag.
+"""
+
+import multiprocessing
+import os
+
+# One BLAS thread per worker: on a small machine, worker processes running
+# multi-threaded BLAS fight over the same cores. Set before numpy is imported.
+for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_name, "1")
+
+bind = os.environ.get("LINFER_BIND", "127.0.0.1:8000")
+workers = int(os.environ.get("LINFER_WORKERS", "0")) or multiprocessing.cpu_count()
+worker_class = "sync"
+timeout = int(os.environ.get("LINFER_TIMEOUT", "60"))
+graceful_timeout = 20
+keepalive = 5
+preload_app = True
+max_requests = 5000
+max_requests_jitter = 500
+accesslog = None
+errorlog = "-"
+loglevel = os.environ.get("LINFER_LOG_LEVEL", "info")
+# Request lines can carry query parameters, never data; keep them short.
+limit_request_line = 8190
