@@ -25,5 +25,7 @@ max_requests_jitter = 500
 accesslog = None
 errorlog = "-"
 loglevel = os.environ.get("LINFER_LOG_LEVEL", "info")
+# No shared control socket: several servers on one machine must not meet there.
+control_socket_disable = True
 # Request lines can carry query parameters, never data; keep them short.
 limit_request_line = 8190

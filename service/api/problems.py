@@ -70,7 +70,11 @@ def _http_error(error: HTTPException) -> Response:
     if status == 413:
         detail = body_limit_detail()
     kind = error.name.lower().replace(" ", "_").replace("'", "")
-    return problem_response(ApiProblem(status, error.name, detail, kind))
+    response = problem_response(ApiProblem(status, error.name, detail, kind))
+    for name, value in error.get_headers():
+        if name.lower() != "content-type":
+            response.headers[name] = value
+    return response
 
 
 def _unexpected(error: Exception) -> Response:

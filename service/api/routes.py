@@ -29,7 +29,16 @@ def _json_body() -> object:
     limit = current_app.config["MAX_CONTENT_LENGTH"]
     if request.content_length is not None and request.content_length > limit:
         raise ApiProblem(413, "Content Too Large", body_limit_detail(), "content_too_large")
-    raw = request.get_data(cache=False)
+    if request.content_length is None:
+        # A chunked body has no length to refuse up front: read one byte past the
+        # limit straight from the server's stream, so a longer body is a 413 and
+        # never a silently truncated document.
+        raw = request.environ["wsgi.input"].read(limit + 1)
+        if len(raw) > limit:
+            raise ApiProblem(413, "Content Too Large", body_limit_detail(),
+                             "content_too_large")
+    else:
+        raw = request.get_data(cache=False)
     try:
         return orjson.loads(raw)
     except orjson.JSONDecodeError as err:

@@ -13,11 +13,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .distributions import f_upper_p, t_quantile, t_two_sided_p
+from .covariance import CovarianceEstimate, estimate_covariance
+from .distributions import f_quantile, f_upper_p, t_quantile, t_two_sided_p
 from .lstsq import EPS, LeastSquares
 
 __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "infer",
-           "is_perfect_fit"]
+           "is_perfect_fit", "SIMULTANEOUS", "simultaneous_multipliers"]
+
+SIMULTANEOUS = ("bonferroni", "scheffe")
 
 
 @dataclass(frozen=True)
@@ -45,6 +48,7 @@ class Coefficient:
     t_statistic: float
     p_value: float
     intervals: tuple[Interval, ...]
+    simultaneous_intervals: tuple[Interval, ...]
     vif: float
 
 
@@ -93,6 +97,8 @@ class Inference:
     fit: FitStatistics
     overall_f_test: FTest
     perfect_fit: bool
+    covariance: CovarianceEstimate
+    simultaneous: str | None
 
 
 def is_perfect_fit(solution: LeastSquares, n: int) -> bool:
@@ -113,9 +119,28 @@ def _vif(solution: LeastSquares, column_spread: np.ndarray | None) -> np.ndarray
         return (solution.root_diagonal * column_spread) ** 2
 
 
+def simultaneous_multipliers(method: str, levels: tuple[float, ...], m: int,
+                             df: float) -> list[float]:
+    """Half-width multipliers (in standard errors) for m intervals holding jointly.
+
+    ``bonferroni``: ``t_{1 - (1 - level) / (2 m), df}`` (each interval at level
+    ``1 - (1 - level) / m``; the joint coverage is at least ``level`` by Bonferroni's
+    inequality). ``scheffe``: ``sqrt(m F_{level}(m, df))``, which covers every linear
+    combination of the m coefficients at once (Scheffe 1953, Biometrika 40, 87-104).
+    """
+    if df <= 0 or m <= 0:
+        return [math.nan] * len(levels)
+    if method == "bonferroni":
+        return [float(-t_quantile((1.0 - lv) / (2.0 * m), df)) for lv in levels]
+    if method == "scheffe":
+        return [math.sqrt(m * float(f_quantile(lv, m, df))) for lv in levels]
+    raise ValueError(f"unknown simultaneous method {method!r}")
+
+
 def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: bool,
           levels: tuple[float, ...], log_weight_sum: float = 0.0,
-          column_spread: np.ndarray | None = None) -> Inference:
+          column_spread: np.ndarray | None = None, covariance: str = "classical",
+          simultaneous: str | None = None) -> Inference:
     """The coefficient table and fit statistics of a solved least-squares problem.
 
     Parameters
@@ -128,35 +153,41 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
     log_weight_sum : ``sum log w_i`` for the log likelihood (0 without weights)
     column_spread : (k,) ``sqrt(sum w (x_j - xbar_j)^2)`` per column, for VIF (with an
         intercept; NaN for the intercept itself), or None
+    covariance : one of :data:`service.stats.covariance.KINDS`; standard errors, t, p
+        and intervals follow it
+    simultaneous : None, ``"bonferroni"`` or ``"scheffe"``: add intervals that hold
+        jointly for all estimable coefficients
     """
     p = solution.rank
     df = n - p
     perfect = is_perfect_fit(solution, n)
     rn, gn = solution.residual_norm, solution.regression_norm
+    sigma = rn / math.sqrt(df) if df > 0 else math.nan
+    cov = estimate_covariance(solution, covariance, n, sigma, perfect and df > 0)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        sigma = rn / math.sqrt(df) if df > 0 else math.nan
-        if perfect and df > 0:
-            se = np.where(solution.estimable, 0.0, np.nan)
-            t = np.full_like(se, np.nan)
-            pv = np.full_like(se, np.nan)
-        elif df > 0:
-            se = sigma * solution.root_diagonal
+        se = cov.standard_errors
+        if df > 0 and not perfect:
             t = solution.coefficients / se
             pv = t_two_sided_p(t, df)
         else:
-            se = t = pv = np.full(solution.coefficients.shape, np.nan)
+            t = pv = np.full(solution.coefficients.shape, np.nan)
         quantiles = [float(-t_quantile((1.0 - lv) / 2.0, df)) if df > 0 else math.nan
                      for lv in levels]
+        joint = (simultaneous_multipliers(simultaneous, levels, p, df)
+                 if simultaneous else [])
         vif = _vif(solution, column_spread)
     coefficients = []
     for j, name in enumerate(names):
         b = float(solution.coefficients[j])
-        intervals = tuple(Interval(lv, b - q * float(se[j]), b + q * float(se[j]))
-                          for lv, q in zip(levels, quantiles))
+        s_j = float(se[j])
         coefficients.append(Coefficient(
             name=name, estimable=bool(solution.estimable[j]), estimate=b,
-            standard_error=float(se[j]), t_statistic=float(t[j]), p_value=float(pv[j]),
-            intervals=intervals, vif=float(vif[j])))
+            standard_error=s_j, t_statistic=float(t[j]), p_value=float(pv[j]),
+            intervals=tuple(Interval(lv, b - q * s_j, b + q * s_j)
+                            for lv, q in zip(levels, quantiles)),
+            simultaneous_intervals=tuple(Interval(lv, b - q * s_j, b + q * s_j)
+                                         for lv, q in zip(levels, joint)),
+            vif=float(vif[j])))
 
     c = 1 if centered else 0
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -196,4 +227,4 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
         coefficients=tuple(coefficients), fit=fit,
         overall_f_test=FTest(statistic=f_stat, numerator_df=float(dfn),
                              denominator_df=float(df), p_value=f_p),
-        perfect_fit=perfect)
+        perfect_fit=perfect, covariance=cov, simultaneous=simultaneous)

@@ -33,7 +33,7 @@ import mpmath
 import numpy as np
 from scipy.linalg import lapack, solve_triangular
 
-__all__ = ["Alias", "LeastSquares", "RankDeficient", "solve"]
+__all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "solve"]
 
 EPS = float(np.finfo(float).eps)
 FULL_DIGITS = 15.9
@@ -59,6 +59,23 @@ class RankDeficient(Exception):
         self.aliases = aliases
         self.rank = rank
         self.n_columns = n_columns
+
+
+@dataclass(frozen=True)
+class Projection:
+    """What robust covariances and influence measures need, in exactly scaled units.
+
+    With ``A = sqrt(W) X diag(2^-e)`` (kept columns) and ``r_s = sqrt(W) (y - X b) 2^-e_y``:
+    ``pseudo_inverse`` is ``A^+ = (A'A)^-1 A'`` (rows follow the kept columns), and
+    ``leverages`` the diagonal of the hat matrix ``A A^+``, from the thin Q of the
+    Householder factorisation (``h_i = |Q_i.|^2``).
+    """
+
+    pseudo_inverse: np.ndarray
+    leverages: np.ndarray
+    weighted_residuals: np.ndarray
+    column_exponents: np.ndarray
+    response_exponent: int
 
 
 @dataclass(frozen=True)
@@ -121,6 +138,7 @@ class LeastSquares:
     method: str
     working_digits: float
     estimated_correct_digits: float
+    projection: Projection | None = None
 
 
 def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
@@ -329,7 +347,7 @@ def _extended_path(xs: np.ndarray, ys: np.ndarray, w: np.ndarray | None, centere
 
 def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
           centered: bool, drop_aliased: bool = False, extended_max_work: int = 200_000,
-          extended_below_digits: float = 13.5) -> LeastSquares:
+          extended_below_digits: float = 13.5, want_projection: bool = False) -> LeastSquares:
     """Solve the weighted least-squares problem ``min sum_i w_i (y_i - x_i b)^2``.
 
     Parameters
@@ -349,6 +367,9 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         Take the extended-precision path when the double-precision estimate of
         correct digits is below ``extended_below_digits`` and ``n * k**2`` is at most
         ``extended_max_work``.
+    want_projection : bool
+        Also return the :class:`Projection` (an n x rank array: ask only when robust
+        covariances or per-row influence are wanted).
 
     Returns
     -------
@@ -421,6 +442,9 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
 
     kept_idx = np.array(kept, dtype=int)
     e_kept = e_col[kept_idx]
+    projection = None
+    if want_projection:
+        projection = _projection(qr, pivots, tau, len(kept), core.residuals, sw, e_kept, e_y)
     coefficients = np.full(k, np.nan)
     root_diagonal = np.full(k, np.nan)
     covariance = np.full((k, k), np.nan)
@@ -442,4 +466,23 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         rank=len(kept), estimable=estimable, aliases=aliases, singular_values=singular,
         right_singular_vectors=vt.T,
         rank_tolerance=rank_tolerance, condition_number=kappa, method=method,
-        working_digits=core.working_digits, estimated_correct_digits=core.digits)
+        working_digits=core.working_digits, estimated_correct_digits=core.digits,
+        projection=projection)
+
+
+def _projection(qr: np.ndarray, pivots: np.ndarray, tau: np.ndarray, r: int,
+                residuals: np.ndarray, sw: np.ndarray | None, e_kept: np.ndarray,
+                e_y: int) -> Projection:
+    n = qr.shape[0]
+    if r == 0:
+        return Projection(np.zeros((0, n)), np.zeros(n), residuals, e_kept, e_y)
+    q, _, info = lapack.dorgqr(qr[:, :r], tau[:r], lwork=max(1, 64 * r))
+    if info != 0:
+        raise ArithmeticError(f"dorgqr failed with info={info}")
+    rinv = solve_triangular(np.triu(qr[:r, :r]), np.eye(r))
+    pinv = np.empty((r, n))
+    pinv[pivots] = rinv @ q.T
+    leverages = np.einsum("ij,ij->i", q, q)
+    weighted = residuals if sw is None else residuals * sw
+    return Projection(pseudo_inverse=pinv, leverages=leverages, weighted_residuals=weighted,
+                      column_exponents=e_kept, response_exponent=e_y)
