@@ -78,7 +78,7 @@ def load(environ: Mapping[str, str] | None = None) -> Settings:
             value = kind(raw)
         except ValueError:
             raise SettingsError(f"{name}={raw!r} is not a {kind.__name__}") from None
-        if value <= 0:
-            raise SettingsError(f"{name}={raw!r} must be positive")
+        if not value > 0 or value == float("inf"):
+            raise SettingsError(f"{name}={raw!r} must be a positive finite number")
         values[f.name] = value
     return base.overlay(values)

@@ -60,19 +60,21 @@ def _finite(out: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:
     return out
 
 
-def _convert(value: object, where: tuple[str | int, ...]) -> np.ndarray:
+def _convert(value: object, where: tuple[str | int, ...], strict: bool) -> np.ndarray:
     try:
         arr = np.array(value)
     except (ValueError, OverflowError):
         arr = np.array(value, dtype=object) if _is_rectangular(value) else None
         if arr is None:
             raise _ragged(value, where) from None
-    if arr.dtype.kind in "fiu":
+    if arr.dtype.kind in "fiu" and not strict:
         return _finite(arr.astype(float, copy=False), where)
     if arr.dtype.kind == "b":
         raise invalid([FieldError(pointer(*where), "must hold numbers, not booleans")])
     if arr.dtype.kind != "O":
         arr = np.array(value, dtype=object)
+        if arr.ndim == 1 and arr.size and isinstance(arr[0], list):
+            raise _ragged(value, where)
     return _finite(_object_cells(arr, where), where)
 
 
@@ -98,25 +100,30 @@ def _ragged(value: object, where: tuple[str | int, ...]) -> ApiProblem:
     return invalid([FieldError(pointer(*where), "must be a flat list of numbers")])
 
 
-def as_vector(value: object, where: tuple[str | int, ...]) -> np.ndarray:
-    """A JSON list of numbers (or nulls) as a float array; a 422 problem otherwise."""
+def as_vector(value: object, where: tuple[str | int, ...], strict: bool = False) -> np.ndarray:
+    """A JSON list of numbers (or nulls) as a float array; a 422 problem otherwise.
+
+    numpy reads ``true`` among numbers as 1.0; ``strict`` (set when the body holds a
+    boolean literal outside the envelope's own flags) takes the slower path that
+    looks at every value's type, so a boolean is pointed at instead.
+    """
     if not isinstance(value, list):
         raise invalid([FieldError(pointer(*where), "must be a list of numbers")])
     if not value:
         raise invalid([FieldError(pointer(*where), "must not be empty")])
-    arr = _convert(value, where)
+    arr = _convert(value, where, strict)
     if arr.ndim != 1:
         raise invalid([FieldError(pointer(*where), "must be a flat list of numbers")])
     return arr
 
 
-def as_matrix(value: object, where: tuple[str | int, ...]) -> np.ndarray:
+def as_matrix(value: object, where: tuple[str | int, ...], strict: bool = False) -> np.ndarray:
     """A JSON list of rows (lists of numbers or nulls) as an (n, k) float array."""
     if not isinstance(value, list) or (value and not isinstance(value[0], list)):
         raise invalid([FieldError(pointer(*where), "must be a list of rows, each a list of numbers")])
     if not value:
         raise invalid([FieldError(pointer(*where), "must not be empty")])
-    arr = _convert(value, where)
+    arr = _convert(value, where, strict)
     if arr.ndim != 2:
         if arr.ndim == 1 and arr.dtype == object:
             raise _ragged(value, where)

@@ -121,8 +121,8 @@ def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool) -> list[str
 
 
 def _matrix_layout(data: dict[str, Any], settings: Settings):
-    x = as_matrix(data["design_matrix"], ("design_matrix",))
-    y = as_vector(data["response"], ("response",))
+    x = as_matrix(data["design_matrix"], ("design_matrix",), data["_strict"])
+    y = as_vector(data["response"], ("response",), data["_strict"])
     n, m = x.shape
     if y.shape[0] != n:
         raise invalid([FieldError("/response", f"response has {y.shape[0]} values, "
@@ -131,7 +131,7 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
     names = _names_for_matrix(data, m, data["intercept"])
     w = None
     if "weights" in data:
-        w = as_vector(data["weights"], ("weights",))
+        w = as_vector(data["weights"], ("weights",), data["_strict"])
         _check_weights(w, n, ("weights",))
     if data["missing"] == "reject":
         arrays = [(x, ("design_matrix",), True), (y, ("response",), False)]
@@ -177,12 +177,12 @@ def _table_layout(data: dict[str, Any], settings: Settings):
         raise invalid([FieldError(pointer("table", INTERCEPT),
                                   "'intercept' names the column of ones the service adds; "
                                   "rename the column or set intercept to false")])
-    y = as_vector(table[response], ("table", response))
+    y = as_vector(table[response], ("table", response), data["_strict"])
     n = y.shape[0]
     _check_limits(n, len(predictors) + int(data["intercept"]), "/table", settings)
     columns = []
     for name in predictors:
-        col = as_vector(table[name], ("table", name))
+        col = as_vector(table[name], ("table", name), data["_strict"])
         if col.shape[0] != n:
             raise invalid([FieldError(pointer("table", name), f"has {col.shape[0]} values; "
                                       f"the response column {response!r} has {n}")])
@@ -190,10 +190,10 @@ def _table_layout(data: dict[str, Any], settings: Settings):
     x = np.column_stack(columns) if columns else np.empty((n, 0))
     w = None
     if weight_col is not None:
-        w = as_vector(table[weight_col], ("table", weight_col))
+        w = as_vector(table[weight_col], ("table", weight_col), data["_strict"])
         _check_weights(w, n, ("table", weight_col))
     elif "weights" in data:
-        w = as_vector(data["weights"], ("weights",))
+        w = as_vector(data["weights"], ("weights",), data["_strict"])
         _check_weights(w, n, ("weights",))
     if data["missing"] == "reject":
         arrays = [(col, ("table", name), False) for col, name in zip(columns, predictors)]
@@ -205,9 +205,15 @@ def _table_layout(data: dict[str, Any], settings: Settings):
     return x, y, w, predictors, where
 
 
-def decode_fit(body: Any, settings: Settings) -> FitRequest:
-    """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault."""
+def decode_fit(body: Any, settings: Settings, boolean_literals: int = 0) -> FitRequest:
+    """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault.
+
+    ``boolean_literals`` counts ``true`` and ``false`` in the raw body; when there are
+    more than the envelope's own flags, the bulk numbers are checked value by value.
+    """
     data = _load_envelope(body)
+    flags = sum(isinstance(v, bool) for v in body.values())
+    data["_strict"] = boolean_literals > flags
     if "table" in data:
         data["table"] = body["table"]
     levels = _check_levels(data["levels"], settings)

@@ -20,7 +20,8 @@ bp = Blueprint("v1", __name__)
 OPENAPI = Path(__file__).resolve().parents[2] / "openapi" / "linfer.yaml"
 
 
-def _json_body() -> object:
+def _json_body() -> tuple[object, int]:
+    """The parsed body, and how many boolean literals its bytes hold."""
     mime = request.mimetype or ""
     if mime != "application/json" and not mime.endswith("+json"):
         raise ApiProblem(415, "Unsupported Media Type",
@@ -40,7 +41,7 @@ def _json_body() -> object:
     else:
         raw = request.get_data(cache=False)
     try:
-        return orjson.loads(raw)
+        return orjson.loads(raw), raw.count(b"true") + raw.count(b"false")
     except orjson.JSONDecodeError as err:
         raise ApiProblem(400, "Malformed JSON", f"the body is not valid JSON: {err}",
                          "malformed_json") from None
@@ -49,7 +50,8 @@ def _json_body() -> object:
 @bp.post("/v1/fit")
 def fit_endpoint() -> Response:
     settings = current_app.config["LINFER_SETTINGS"]
-    req = decode_fit(_json_body(), settings)
+    body, booleans = _json_body()
+    req = decode_fit(body, settings, booleans)
     design = req.design
     try:
         result = fit(design, req.options)

@@ -75,11 +75,14 @@ class FitRequestSchema(Schema):
         if not matrix and not table:
             raise ValidationError("send the data as design_matrix and response, or as table "
                                   "with response_column", field_name="_schema")
+        # A missing member cannot be pointed at: its error points at the object
+        # that lacks it ("" is the whole document) and names it.
         errors: dict[str, list[str]] = {}
+        absent: list[str] = []
         if matrix:
             for name in ("design_matrix", "response"):
                 if name not in data:
-                    errors[name] = ["is required with the design_matrix layout"]
+                    absent.append(f"{name} is required with the design_matrix layout")
             for name in ("response_column", "predictor_columns"):
                 if name in data:
                     errors[name] = ["belongs to the table layout; with design_matrix, "
@@ -88,10 +91,12 @@ class FitRequestSchema(Schema):
                 errors["weights"] = ["a column name needs the table layout; send a list"]
         else:
             if "response_column" not in data:
-                errors["response_column"] = ["is required with the table layout"]
+                absent.append("response_column is required with the table layout")
             if "column_names" in data:
                 errors["column_names"] = ["belongs to the design_matrix layout; with table, "
                                           "use predictor_columns"]
+        if absent:
+            errors["_schema"] = absent
         if errors:
             raise ValidationError(errors)
 

@@ -20,13 +20,19 @@ def t_two_sided_p(t: np.ndarray | float, df: float) -> np.ndarray:
     Notes
     -----
     ``P(|T| >= |t|) = I_x(df/2, 1/2)`` with ``x = df / (df + t^2)``, the regularized
-    incomplete beta function (Abramowitz and Stegun 26.7.1 with 26.5.27). The form
-    keeps full relative accuracy in the far tail.
+    incomplete beta function (Abramowitz and Stegun 26.7.1 with 26.5.27). When x is
+    near 1 (a small t or many degrees of freedom) rounding x would lose ``1 - x``,
+    so the complement ``1 - I_{1-x}(1/2, df/2)`` is used there, with
+    ``1 - x = t^2 / (df + t^2)`` formed directly. Both keep full relative accuracy,
+    down to p values near 1e-300.
     """
     t = np.asarray(t, dtype=float)
-    with np.errstate(over="ignore"):
-        x = df / (df + t * t)
-    return special.betainc(0.5 * df, 0.5, x)
+    with np.errstate(over="ignore", invalid="ignore"):
+        t2 = t * t
+        x = df / (df + t2)
+        y = t2 / (df + t2)
+        return np.where(x <= 0.5, special.betainc(0.5 * df, 0.5, x),
+                        special.betaincc(0.5, 0.5 * df, y))
 
 
 def t_quantile(probability: np.ndarray | float, df: float) -> np.ndarray:
@@ -39,13 +45,16 @@ def f_upper_p(f: np.ndarray | float, dfn: float, dfd: float) -> np.ndarray:
 
     Notes
     -----
-    ``P(F >= f) = I_x(dfd/2, dfn/2)`` with ``x = dfd / (dfd + dfn f)``
-    (Abramowitz and Stegun 26.6.2), computed without cancellation.
+    ``P(F >= f) = I_x(dfd/2, dfn/2)`` with ``x = dfd / (dfd + dfn f)`` (Abramowitz and
+    Stegun 26.6.2); for x near 1 the complement ``1 - I_{1-x}(dfn/2, dfd/2)`` with
+    ``1 - x = dfn f / (dfd + dfn f)`` formed directly, as for t.
     """
     f = np.asarray(f, dtype=float)
-    with np.errstate(over="ignore"):
+    with np.errstate(over="ignore", invalid="ignore"):
         x = dfd / (dfd + dfn * f)
-    return special.betainc(0.5 * dfd, 0.5 * dfn, x)
+        y = dfn * f / (dfd + dfn * f)
+        return np.where(x <= 0.5, special.betainc(0.5 * dfd, 0.5 * dfn, x),
+                        special.betaincc(0.5 * dfn, 0.5 * dfd, y))
 
 
 def f_quantile(probability: np.ndarray | float, dfn: float, dfd: float) -> np.ndarray:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -9,12 +10,15 @@ import numpy as np
 
 from .conditioning import Conditioning, assess
 from .design import Design
-from .inference import Inference, infer
+from .hypotheses import Hypothesis, HypothesisResult, Restriction, test_hypotheses
+from .inference import FTest, Inference, infer
 from .lstsq import Alias, LeastSquares, solve
+from .model import ModelSummary
 from .notices import Notice
+from .residuals import Influence, ResidualChecks, check_residuals, influence
 
 __all__ = ["FitOptions", "FitResult", "Numerics", "TooFewObservations", "fit",
-           "describe_alias"]
+           "describe_alias", "model_summary"]
 
 FEW_DIGITS = 8.0
 
@@ -34,6 +38,10 @@ class FitOptions:
     drop_aliased: bool = False
     extended_max_work: int = 200_000
     extended_below_digits: float = 13.5
+    covariance: str = "classical"
+    simultaneous: str | None = None
+    hypotheses: tuple[Hypothesis, ...] = ()
+    include_influence: bool = False
 
 
 @dataclass(frozen=True)
@@ -53,6 +61,10 @@ class FitResult:
     conditioning: Conditioning
     numerics: Numerics
     notices: tuple[Notice, ...]
+    model: ModelSummary
+    hypotheses: tuple[HypothesisResult, ...]
+    residual_checks: ResidualChecks
+    influence: Influence | None
 
 
 def describe_alias(alias: Alias, names: tuple[str, ...]) -> str:
@@ -158,20 +170,64 @@ def fit(design: Design, options: FitOptions) -> FitResult:
         ``n < k`` (after dropped rows).
     RankDeficient
         Aliased columns and ``options.drop_aliased`` is false.
+    HypothesisError
+        A set of restrictions that cannot be tested.
     """
     n, k = design.matrix.shape
     if n < k:
         raise TooFewObservations(n, k)
+    robust = options.covariance != "classical"
     solution = solve(design.matrix, design.response, design.weights,
                      centered=design.intercept, drop_aliased=options.drop_aliased,
                      extended_max_work=options.extended_max_work,
-                     extended_below_digits=options.extended_below_digits)
+                     extended_below_digits=options.extended_below_digits,
+                     want_projection=robust or options.include_influence)
     log_w = 0.0 if design.weights is None else math.fsum(np.log(design.weights).tolist())
     result = infer(solution, design.names, n, centered=design.intercept,
                    levels=options.levels, log_weight_sum=log_w,
-                   column_spread=_column_spread(design))
+                   column_spread=_column_spread(design), covariance=options.covariance,
+                   simultaneous=options.simultaneous)
+    model = model_summary(design, solution, result)
+    tests = test_hypotheses(model, options.hypotheses,
+                            residual_sum_of_squares=result.fit.residual_sum_of_squares)
+    if robust:
+        result = _robust_overall_test(result, model, design)
     cond = assess(solution, design.names)
     numerics = Numerics(method=solution.method, working_digits=solution.working_digits,
                         estimated_correct_digits=solution.estimated_correct_digits)
-    return FitResult(design=design, solution=solution, inference=result, conditioning=cond,
-                     numerics=numerics, notices=tuple(_notices(design, result, cond, solution)))
+    sigma = result.fit.residual_standard_deviation
+    return FitResult(
+        design=design, solution=solution, inference=result, conditioning=cond,
+        numerics=numerics, notices=tuple(_notices(design, result, cond, solution)),
+        model=model, hypotheses=tuple(tests),
+        residual_checks=check_residuals(solution, design.matrix, design.weights,
+                                        design.intercept),
+        influence=influence(solution, design.weights, sigma)
+        if options.include_influence else None)
+
+
+def model_summary(design: Design, solution: LeastSquares, result: Inference) -> ModelSummary:
+    """The compact summary of a fit (estimates, their covariance, residual variance, ...)."""
+    names = design.names
+    sigma = result.fit.residual_standard_deviation
+    aliased = tuple((names[a.column], tuple((names[i], m) for i, m in a.relation))
+                    for a in solution.aliases)
+    return ModelSummary(
+        names=names, intercept=design.intercept, estimates=solution.coefficients,
+        covariance=result.covariance.matrix, covariance_kind=result.covariance.kind,
+        residual_variance=sigma * sigma, residual_df=result.residual_df,
+        n_observations=result.n_observations, aliased=aliased)
+
+
+def _robust_overall_test(result: Inference, model: ModelSummary, design: Design) -> Inference:
+    """With a robust covariance the overall test is the Wald test that all slopes are zero."""
+    slopes = [name for name, e in zip(design.names, model.estimable)
+              if e and not (design.intercept and name == design.names[0])]
+    if not slopes or result.perfect_fit:
+        return result
+    everything = Hypothesis(label=None, restrictions=tuple(
+        Restriction(coefficients=((name, 1.0),), equals=0.0) for name in slopes))
+    wald = test_hypotheses(model, (everything,))[0]
+    return dataclasses.replace(result, overall_f_test=FTest(
+        statistic=wald.statistic, numerator_df=float(wald.numerator_df),
+        denominator_df=float(wald.denominator_df), p_value=wald.p_value))

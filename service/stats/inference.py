@@ -162,6 +162,8 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
     df = n - p
     perfect = is_perfect_fit(solution, n)
     rn, gn = solution.residual_norm, solution.regression_norm
+    if centered and p <= 1:
+        gn = 0.0  # the intercept-only model fits the mean: nothing is explained
     sigma = rn / math.sqrt(df) if df > 0 else math.nan
     cov = estimate_covariance(solution, covariance, n, sigma, perfect and df > 0)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):

@@ -408,3 +408,40 @@ def test_huge_t_statistic_tiny_p_value(clients, path):
     table = agreement(got, ref)
     assert_digits({k: v for k, v in table.items() if k not in ("p_value", "f_p_value")},
                   WELL_CONDITIONED_DIGITS, "huge t")
+
+
+def _near_zero_coefficient_problem(t_target):
+    """A problem whose last coefficient's t statistic is about ``t_target``.
+
+    The response is shifted along the last column's component orthogonal to the others,
+    which moves that coefficient alone and leaves the residuals as they were.
+    """
+    rng = np.random.default_rng(71)
+    n = 33
+    x = rng.normal(size=(n, 2))
+    y = 1.0 + x @ np.array([0.5, 0.2]) + rng.normal(size=n)
+    a = np.column_stack([np.ones(n), x])
+    b, *_ = np.linalg.lstsq(a, y, rcond=None)
+    others = a[:, :2]
+    z = x[:, 1] - others @ np.linalg.lstsq(others, x[:, 1], rcond=None)[0]
+    resid = y - a @ b
+    se = math.sqrt(resid @ resid / (n - 3) / (z @ z))
+    return x, y - (b[2] - t_target * se) * z
+
+
+def test_p_value_of_a_coefficient_near_zero(client):
+    # Source: the 50-digit mpmath reference above. A coefficient estimated near zero has
+    # |t| ~ 1e-6 and p ~ 1 - 1e-6; p is then insensitive to the rounding of t, so a double
+    # result can carry ~15 digits. The estimate itself cannot (it is a cancellation), so
+    # only p is asked for here, to 13 digits, both against the reference p and against
+    # mpmath's p at the service's own t (which isolates the distribution function).
+    x, y = _near_zero_coefficient_problem(1e-6)
+    ref = reference_fit(x, y)
+    assert 1e-7 < abs(ref["t"][2]) < 1e-5  # the premise
+    got = post(client, x, y)
+    coef = got["coefficients"][2]
+    with mpmath.workdps(DPS):
+        at_service_t = _mp_t_two_sided_p(mpmath.mpf(coef["t_statistic"]), ref["df"])
+    found = {"against reference p": digits(coef["p_value"], ref["p"][2]),
+             "against mpmath p at the service's t": digits(coef["p_value"], at_service_t)}
+    assert_digits(found, WELL_CONDITIONED_DIGITS, f"p value at t = {coef['t_statistic']:.3g}")

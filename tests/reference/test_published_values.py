@@ -14,6 +14,7 @@ Sources, named again beside each check:
 
 from __future__ import annotations
 
+import mpmath
 import numpy as np
 import pytest
 from scipy import stats as scipy_stats
@@ -121,59 +122,90 @@ def test_f_quantile_rounds_to_the_table(dfn, dfd, tabulated):
 # --------------------------------------------------------------------------- scipy.stats t and F
 
 
-DFS = [1, 2, 3, 4.5, 5, 10, 30, 100, 1000, 1e5]
-T_POINTS = [0.0, 1e-6, 0.1, 0.5, 1.0, 1.96, 2.5, 5.0, 10.0, 50.0, 1e3, 1e6]
+# Degrees of freedom up to about 1e6 (the default row limit is 1e6 observations), and
+# statistics from 1e-6 (a coefficient estimated near zero) to far into the tail.
+DFS = [1, 2, 3, 4.5, 5, 10, 30, 100, 1000, 1e4, 1e5, 999998]
+T_POINTS = [0.0, 1e-6, 1e-3, 0.1, 0.5, 1.0, 1.96, 2.5, 5.0, 10.0, 50.0, 1e3, 1e6]
 PROBABILITIES = [1e-12, 1e-6, 1e-3, 0.005, 0.025, 0.05, 0.1, 0.3, 0.7, 0.9, 0.95, 0.975,
                  0.995, 0.999, 1 - 1e-6]
 F_POINTS = [1e-6, 0.01, 0.2, 0.5, 1.0, 2.0, 3.7, 10.0, 100.0, 1e4]
 F_DFS = [(1, 1), (1, 10), (2, 20), (3, 10), (5, 2), (10, 50), (4.5, 7.5), (30, 1000),
-         (100, 3)]
+         (100, 3), (1, 1e5), (3, 1e5), (5, 999994)]
 REL = 1e-12
 
 
+def _mismatches(pairs):
+    """``[(point, got, ref, relative error)]`` for the pairs outside REL."""
+    bad = []
+    for point, got, ref in pairs:
+        err = abs(got - ref) / abs(ref) if ref != 0 else abs(got)
+        if not err <= REL:
+            bad.append((point, got, ref, f"{err:.1e}"))
+    return bad
+
+
+def _t_reference(t: float, df: float) -> float:
+    # Source: scipy.stats.t.sf, P(|T| >= |t|) = 2 sf(|t|); for df = 1 (the Cauchy
+    # distribution) the closed form 1 - (2/pi) atan|t| in mpmath at 40 digits, since
+    # scipy's t.sf loses digits there for tiny t (2.8e-11 at t = 1e-6, checked
+    # against mpmath).
+    if df == 1:
+        with mpmath.workdps(40):
+            return float(1 - 2 / mpmath.pi * mpmath.atan(abs(mpmath.mpf(t))))
+    return 2.0 * float(scipy_stats.t.sf(abs(t), df))
+
+
 def test_t_two_sided_p_matches_scipy_t_sf():
-    # Source: scipy.stats.t.sf: P(|T| >= |t|) = 2 sf(|t|).
-    for df in DFS:
-        for t in T_POINTS:
-            for sign in (1.0, -1.0):
-                got = float(distributions.t_two_sided_p(sign * t, df))
-                ref = 2.0 * scipy_stats.t.sf(t, df)
-                assert got == pytest.approx(ref, rel=REL, abs=0), (df, sign * t)
+    pairs = [((df, sign * t), float(distributions.t_two_sided_p(sign * t, df)),
+              _t_reference(t, df))
+             for df in DFS for t in T_POINTS for sign in (1.0, -1.0)]
+    bad = _mismatches(pairs)
+    assert not bad, f"{len(bad)} of {len(pairs)} points off by more than {REL}: {bad[:12]}"
 
 
 def test_t_quantile_matches_scipy_t_ppf():
     # Source: scipy.stats.t.ppf.
-    for df in DFS:
-        for p in PROBABILITIES:
-            got = float(distributions.t_quantile(p, df))
-            ref = scipy_stats.t.ppf(p, df)
-            assert got == pytest.approx(ref, rel=REL, abs=0), (df, p)
+    pairs = [((df, p), float(distributions.t_quantile(p, df)), float(scipy_stats.t.ppf(p, df)))
+             for df in DFS for p in PROBABILITIES]
+    bad = _mismatches(pairs)
+    assert not bad, f"{len(bad)} of {len(pairs)} points off by more than {REL}: {bad[:12]}"
     assert float(distributions.t_quantile(0.5, 7)) == 0.0  # Source: symmetry of t.
 
 
 def test_f_upper_p_matches_scipy_f_sf():
     # Source: scipy.stats.f.sf.
-    for dfn, dfd in F_DFS:
-        for f in F_POINTS:
-            got = float(distributions.f_upper_p(f, dfn, dfd))
-            ref = scipy_stats.f.sf(f, dfn, dfd)
-            assert got == pytest.approx(ref, rel=REL, abs=0), (dfn, dfd, f)
+    pairs = [((dfn, dfd, f), float(distributions.f_upper_p(f, dfn, dfd)),
+              float(scipy_stats.f.sf(f, dfn, dfd)))
+             for dfn, dfd in F_DFS for f in F_POINTS]
+    bad = _mismatches(pairs)
+    assert not bad, f"{len(bad)} of {len(pairs)} points off by more than {REL}: {bad[:12]}"
 
 
 def test_f_quantile_matches_scipy_f_ppf():
     # Source: scipy.stats.f.ppf.
-    for dfn, dfd in F_DFS:
-        for p in PROBABILITIES:
-            got = float(distributions.f_quantile(p, dfn, dfd))
-            ref = scipy_stats.f.ppf(p, dfn, dfd)
-            assert got == pytest.approx(ref, rel=REL, abs=0), (dfn, dfd, p)
+    pairs = [((dfn, dfd, p), float(distributions.f_quantile(p, dfn, dfd)),
+              float(scipy_stats.f.ppf(p, dfn, dfd)))
+             for dfn, dfd in F_DFS for p in PROBABILITIES]
+    bad = _mismatches(pairs)
+    assert not bad, f"{len(bad)} of {len(pairs)} points off by more than {REL}: {bad[:12]}"
+
+
+def test_t_and_f_far_tails_match_scipy_in_the_range_that_matters():
+    # Source: scipy.stats.t.sf and scipy.stats.f.sf: moderate and far-tail statistics
+    # at small and moderate df, where p values like 1e-250 must stay positive numbers.
+    for df in [5, 38, 100]:
+        for t in [3.0, 30.0, 300.0, 3e3]:
+            ref = 2.0 * float(scipy_stats.t.sf(t, df))
+            if ref > 1e-300:
+                assert float(distributions.t_two_sided_p(t, df)) == pytest.approx(ref, rel=REL)
+    assert 0 < float(distributions.t_two_sided_p(1e6, 38))  # about 1e-216
 
 
 def test_vectorised_calls_match_scalar_calls():
-    # Source: scipy.stats.t.sf and scipy.stats.f.sf on arrays (the service passes arrays).
+    # Source: the service's own scalar calls (the inference code passes arrays).
     t = np.array(T_POINTS)
-    assert np.allclose(distributions.t_two_sided_p(t, 12), 2 * scipy_stats.t.sf(t, 12),
-                       rtol=REL, atol=0)
+    vec = distributions.t_two_sided_p(t, 12)
+    assert [float(v) for v in vec] == [float(distributions.t_two_sided_p(v, 12)) for v in t]
     f = np.array(F_POINTS)
-    assert np.allclose(distributions.f_upper_p(f, 3, 17), scipy_stats.f.sf(f, 3, 17),
-                       rtol=REL, atol=0)
+    vec = distributions.f_upper_p(f, 3, 17)
+    assert [float(v) for v in vec] == [float(distributions.f_upper_p(v, 3, 17)) for v in f]

@@ -1,0 +1,121 @@
+"""Checks on the residuals, and per-row influence measures.
+
+All on the weighted residuals ``e*_i = sqrt(w_i) (y_i - x_i b)``, in row order.
+
+- Moments: ``skewness = m3 / m2^1.5`` and ``kurtosis = m4 / m2^2`` (3 for normal errors;
+  not the excess), central moments ``m_k = mean((e - mean e)^k)``.
+- Durbin-Watson: ``d = sum (e_t - e_{t-1})^2 / sum e_t^2`` (Durbin and Watson 1950,
+  Biometrika 37, 409-428); near 2 without first-order serial correlation. It is
+  meaningful only when the rows are in time (or another natural) order.
+- Jarque-Bera: ``JB = n/6 (S^2 + (K - 3)^2 / 4)``, referred to chi-square(2) (Jarque and
+  Bera 1980, Economics Letters 6, 255-259).
+- Breusch-Pagan, studentized (Koenker 1981, Journal of Econometrics 17, 107-112):
+  ``LM = n R^2`` of the regression of ``e*^2`` on a constant and the predictors,
+  referred to chi-square with as many degrees of freedom as non-constant predictors.
+- Influence (Cook and Weisberg, Residuals and Influence in Regression, 1982):
+  leverage ``h_i``; internally studentized ``r_i = e*_i / (s sqrt(1 - h_i))``;
+  externally studentized ``t_i = r_i sqrt((n - p - 1) / (n - p - r_i^2))``;
+  Cook's distance ``D_i = r_i^2 h_i / (p (1 - h_i))``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special
+
+from .lstsq import LeastSquares
+
+__all__ = ["ResidualChecks", "Influence", "check_residuals", "influence"]
+
+
+@dataclass(frozen=True)
+class ResidualChecks:
+    quantiles: tuple[tuple[float, float], ...]
+    skewness: float
+    kurtosis: float
+    durbin_watson: float
+    jarque_bera_statistic: float
+    jarque_bera_p_value: float
+    breusch_pagan_statistic: float
+    breusch_pagan_df: int
+    breusch_pagan_p_value: float
+
+
+@dataclass(frozen=True)
+class Influence:
+    leverage: np.ndarray
+    studentized_residual: np.ndarray
+    externally_studentized_residual: np.ndarray
+    cooks_distance: np.ndarray
+
+
+def _weighted(solution: LeastSquares, weights: np.ndarray | None) -> np.ndarray:
+    return solution.residuals if weights is None else solution.residuals * np.sqrt(weights)
+
+
+def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool) -> tuple[float, int, float]:
+    z = x[:, 1:] if intercept else x
+    z = z[:, np.ptp(z, axis=0) > 0] if z.size else z
+    n = e.shape[0]
+    u = e * e
+    if z.shape[1] == 0 or not np.any(u != u[0]):
+        return math.nan, int(z.shape[1]), math.nan
+    scale = np.max(np.abs(z), axis=0)
+    a = np.column_stack([np.ones(n), z / scale])
+    coef, *_ = np.linalg.lstsq(a, u, rcond=None)
+    rank = int(np.linalg.matrix_rank(a)) - 1
+    fitted = a @ coef
+    centred = u - u.mean()
+    ss_tot = float(centred @ centred)
+    ss_reg = float((fitted - u.mean()) @ (fitted - u.mean()))
+    lm = n * ss_reg / ss_tot
+    return lm, rank, float(special.chdtrc(rank, lm)) if rank > 0 else math.nan
+
+
+def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray | None,
+                    intercept: bool) -> ResidualChecks:
+    """The residual summary and the tests of the module docstring."""
+    e = _weighted(solution, weights)
+    n = e.shape[0]
+    probs = (0.0, 0.25, 0.5, 0.75, 1.0)
+    quantiles = tuple((p, float(q)) for p, q in zip(probs, np.quantile(e, probs)))
+    d = e - e.mean()
+    m2 = float(d @ d) / n
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if m2 > 0:
+            skew = float(np.mean(d ** 3)) / m2 ** 1.5
+            kurt = float(np.mean(d ** 4)) / m2 ** 2
+            jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)
+            jb_p = math.exp(-jb / 2.0)
+        else:
+            skew = kurt = jb = jb_p = math.nan
+        ss = float(e @ e)
+        dw = float(np.sum(np.diff(e) ** 2)) / ss if ss > 0 and n > 1 else math.nan
+    bp, bp_df, bp_p = _breusch_pagan(e, x, intercept)
+    return ResidualChecks(quantiles=quantiles, skewness=skew, kurtosis=kurt,
+                          durbin_watson=dw, jarque_bera_statistic=jb,
+                          jarque_bera_p_value=jb_p, breusch_pagan_statistic=bp,
+                          breusch_pagan_df=bp_df, breusch_pagan_p_value=bp_p)
+
+
+def influence(solution: LeastSquares, weights: np.ndarray | None, sigma: float) -> Influence:
+    """Leverages, studentized residuals and Cook's distances (needs the projection)."""
+    if solution.projection is None:
+        raise ValueError("influence measures need the solution's projection")
+    h = solution.projection.leverages
+    e = _weighted(solution, weights)
+    p = solution.rank
+    df = e.shape[0] - p
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        free = np.where(h < 1.0 - 1e-12, 1.0 - h, np.nan)
+        r = e / (sigma * np.sqrt(free)) if sigma > 0 else np.full_like(e, np.nan)
+        if df > 1:
+            t = r * np.sqrt((df - 1) / np.maximum(df - r * r, 0.0))
+        else:
+            t = np.full_like(e, np.nan)
+        cook = r * r * h / (p * free) if p > 0 else np.full_like(e, np.nan)
+    return Influence(leverage=h, studentized_residual=r,
+                     externally_studentized_residual=t, cooks_distance=cook)
