@@ -35,6 +35,9 @@ class Settings:
         Most rows x columns in one design (LINFER_MAX_CELLS).
     max_levels
         Most confidence levels in one request (LINFER_MAX_LEVELS).
+    max_hypotheses
+        Most sets of restrictions in one request (LINFER_MAX_HYPOTHESES); each set
+        holds at most ``max_columns`` restrictions.
     extended_max_work
         Largest rows x columns^2 for which the extended-precision path may be
         taken (LINFER_EXTENDED_MAX_WORK); larger problems stay in double
@@ -49,6 +52,7 @@ class Settings:
     max_columns: int = 200
     max_cells: int = 2_000_000
     max_levels: int = 10
+    max_hypotheses: int = 50
     extended_max_work: int = 200_000
     extended_below_digits: float = 13.5
 

@@ -11,16 +11,17 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from marshmallow import ValidationError
+from marshmallow import Schema, ValidationError
 
 from ..settings import Settings
 from ..stats.design import INTERCEPT, Design, build_design
 from ..stats.fit import FitOptions
+from ..stats.hypotheses import Hypothesis, Restriction
 from .arrays import MAX_POINTED, as_matrix, as_vector, invalid
 from .problems import FieldError, pointer
 from .schemas import FitRequestSchema, flatten_errors
 
-__all__ = ["FitRequest", "decode_fit"]
+__all__ = ["FitRequest", "decode_fit", "decode_design", "fit_options", "load_request"]
 
 _SCHEMA = FitRequestSchema()
 
@@ -32,17 +33,8 @@ class FitRequest:
     design: Design
     options: FitOptions
     column_pointers: dict[str, str]
-
-
-def _load_envelope(body: Any) -> dict[str, Any]:
-    if not isinstance(body, dict):
-        raise invalid([FieldError("", "the request body must be a JSON object")])
-    try:
-        return _SCHEMA.load(body)
-    except ValidationError as err:
-        errors = flatten_errors(err.messages)
-        raise invalid(errors, f"{len(errors)} field(s) of the request are invalid: "
-                      + "; ".join(f"{e.pointer or '/'} {e.message}" for e in errors[:3]))
+    include_residuals: bool = False
+    return_model: bool = False
 
 
 def _check_limits(n: int, k: int, where: str, settings: Settings) -> None:
@@ -205,24 +197,82 @@ def _table_layout(data: dict[str, Any], settings: Settings):
     return x, y, w, predictors, where
 
 
+def _strict(body: dict[str, Any], boolean_literals: int) -> bool:
+    """More boolean literals in the bytes than the envelope's flags: check values one by one."""
+    flags = sum(isinstance(v, bool) for v in body.values())
+    model = body.get("model")
+    if isinstance(model, dict):
+        flags += sum(isinstance(v, bool) for v in model.values())
+    return boolean_literals > flags
+
+
+def decode_design(data: dict[str, Any], body: dict[str, Any],
+                  settings: Settings) -> tuple[Design, dict[str, str]]:
+    """The design from either data layout, and a JSON pointer per design column."""
+    if "table" in data:
+        data["table"] = body["table"]  # the body's own dict: its column order is the caller's
+    layout = _table_layout if "table" in data else _matrix_layout
+    x, y, w, names, where = layout(data, settings)
+    design = build_design(x, y, tuple(names), intercept=data["intercept"], weights=w)
+    if data["intercept"]:
+        where[INTERCEPT] = "/intercept"
+    return design, where
+
+
+def _hypotheses(data: dict[str, Any], settings: Settings) -> tuple[Hypothesis, ...]:
+    sets = data.get("hypotheses") or []
+    if len(sets) > settings.max_hypotheses:
+        raise invalid([FieldError("/hypotheses", f"has {len(sets)} sets, more than the limit "
+                                  f"of {settings.max_hypotheses} (LINFER_MAX_HYPOTHESES)")])
+    out = []
+    for i, h in enumerate(sets):
+        if len(h["restrictions"]) > settings.max_columns:
+            raise invalid([FieldError(pointer("hypotheses", i, "restrictions"),
+                                      f"has {len(h['restrictions'])} restrictions, more than "
+                                      f"the limit of {settings.max_columns} "
+                                      "(LINFER_MAX_COLUMNS)")])
+        out.append(Hypothesis(label=h.get("label"), restrictions=tuple(
+            Restriction(coefficients=tuple(r["coefficients"].items()), equals=r["equals"])
+            for r in h["restrictions"])))
+    return tuple(out)
+
+
+def fit_options(data: dict[str, Any], settings: Settings) -> FitOptions:
+    return FitOptions(
+        levels=_check_levels(data["levels"], settings),
+        drop_aliased=data.get("rank_deficiency") == "drop_aliased",
+        extended_max_work=settings.extended_max_work,
+        extended_below_digits=settings.extended_below_digits,
+        covariance=data.get("covariance", "classical"),
+        simultaneous=data.get("simultaneous"),
+        hypotheses=_hypotheses(data, settings),
+        include_influence="influence" in data.get("include", ()))
+
+
+def load_request(schema: Schema, body: Any, boolean_literals: int) -> dict[str, Any]:
+    """The envelope of ``body`` loaded by ``schema``; 422 with every field error at once."""
+    if not isinstance(body, dict):
+        raise invalid([FieldError("", "the request body must be a JSON object")])
+    try:
+        data = schema.load(body)
+    except ValidationError as err:
+        errors = flatten_errors(err.messages)
+        raise invalid(errors, f"{len(errors)} field(s) of the request are invalid: "
+                      + "; ".join(f"{e.pointer or '/'} {e.message}" for e in errors[:3]))
+    data["_strict"] = _strict(body, boolean_literals)
+    return data
+
+
 def decode_fit(body: Any, settings: Settings, boolean_literals: int = 0) -> FitRequest:
     """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault.
 
     ``boolean_literals`` counts ``true`` and ``false`` in the raw body; when there are
     more than the envelope's own flags, the bulk numbers are checked value by value.
     """
-    data = _load_envelope(body)
-    flags = sum(isinstance(v, bool) for v in body.values())
-    data["_strict"] = boolean_literals > flags
-    if "table" in data:
-        data["table"] = body["table"]
-    levels = _check_levels(data["levels"], settings)
-    layout = _table_layout if "table" in data else _matrix_layout
-    x, y, w, names, where = layout(data, settings)
-    design = build_design(x, y, tuple(names), intercept=data["intercept"], weights=w)
-    if data["intercept"]:
-        where[INTERCEPT] = "/intercept"
-    options = FitOptions(levels=levels, drop_aliased=data["rank_deficiency"] == "drop_aliased",
-                         extended_max_work=settings.extended_max_work,
-                         extended_below_digits=settings.extended_below_digits)
-    return FitRequest(design=design, options=options, column_pointers=where)
+    data = load_request(_SCHEMA, body, boolean_literals)
+    options = fit_options(data, settings)
+    design, where = decode_design(data, body, settings)
+    include = tuple(data.get("include", ()))
+    return FitRequest(design=design, options=options, column_pointers=where,
+                      include_residuals="residuals" in include or "influence" in include,
+                      return_model=data["return_model"])

@@ -9,12 +9,14 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import numpy as np
 import orjson
 from flask import Response
 
 from ..stats.fit import FitResult, describe_alias
 
-__all__ = ["number", "encode_fit", "json_response"]
+__all__ = ["number", "numbers", "intervals", "encode_fit", "encode_hypothesis", "encode_rows",
+           "json_response"]
 
 
 def number(value: float) -> float | None:
@@ -37,8 +39,8 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
         "standard_error": number(c.standard_error),
         "t_statistic": number(c.t_statistic),
         "p_value": number(c.p_value),
-        "intervals": [{"level": iv.level, "lower": number(iv.lower), "upper": number(iv.upper)}
-                      for iv in c.intervals],
+        "intervals": intervals(c.intervals),
+        "simultaneous_intervals": intervals(c.simultaneous_intervals),
         "vif": number(c.vif),
     } for c in inf.coefficients]
     return {
@@ -59,6 +61,15 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
             "bic": number(fit.bic),
             "centered": fit.centered,
         },
+        "covariance": {
+            "kind": inf.covariance.kind,
+            "reference_distribution": (
+                f"Student t and F with {inf.residual_df} denominator degrees of freedom"),
+        },
+        "simultaneous": None if inf.simultaneous is None else {
+            "method": inf.simultaneous,
+            "family_size": inf.n_parameters,
+        },
         "overall_f_test": {
             "statistic": number(f.statistic),
             "numerator_df": number(f.numerator_df),
@@ -78,6 +89,8 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
                                for s in cond.collinear_sets],
             "aliased": [alias_entry(a, names) for a in cond.aliased],
         },
+        "hypotheses": [encode_hypothesis(h) for h in result.hypotheses],
+        "residual_checks": encode_residual_checks(result.residual_checks),
         "warnings": [{"code": n.code, "message": n.message,
                       "pointer": column_pointers.get(n.column) if n.column else None}
                      for n in result.notices],
@@ -87,6 +100,54 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
             "estimated_correct_digits": round(result.numerics.estimated_correct_digits, 2),
         },
     }
+
+
+def intervals(items) -> list[dict[str, Any]]:
+    return [{"level": iv.level, "lower": number(iv.lower), "upper": number(iv.upper)}
+            for iv in items]
+
+
+def numbers(values: np.ndarray) -> list[float | None]:
+    return [v if math.isfinite(v) else None for v in np.asarray(values, dtype=float).tolist()]
+
+
+def encode_hypothesis(h) -> dict[str, Any]:
+    return {"label": h.label, "statistic": number(h.statistic),
+            "numerator_df": h.numerator_df, "denominator_df": h.denominator_df,
+            "p_value": number(h.p_value),
+            "restricted_residual_sum_of_squares": number(h.restricted_residual_sum_of_squares),
+            "unrestricted_residual_sum_of_squares":
+                number(h.unrestricted_residual_sum_of_squares)}
+
+
+def encode_residual_checks(c) -> dict[str, Any]:
+    return {
+        "quantiles": [{"probability": p, "value": number(v)} for p, v in c.quantiles],
+        "skewness": number(c.skewness),
+        "kurtosis": number(c.kurtosis),
+        "durbin_watson": number(c.durbin_watson),
+        "jarque_bera": {"statistic": number(c.jarque_bera_statistic), "df": 2,
+                        "p_value": number(c.jarque_bera_p_value)},
+        "breusch_pagan": {"statistic": number(c.breusch_pagan_statistic),
+                          "df": c.breusch_pagan_df,
+                          "p_value": number(c.breusch_pagan_p_value)},
+    }
+
+
+def encode_rows(result: FitResult) -> dict[str, Any]:
+    """Per-row output, column-wise: one list per measure, ``row`` indexing the rows as posted."""
+    rows: dict[str, Any] = {
+        "row": result.design.rows_used.tolist(),
+        "fitted": numbers(result.solution.fitted),
+        "residual": numbers(result.solution.residuals),
+    }
+    if result.influence is not None:
+        inf = result.influence
+        rows["leverage"] = numbers(inf.leverage)
+        rows["studentized_residual"] = numbers(inf.studentized_residual)
+        rows["externally_studentized_residual"] = numbers(inf.externally_studentized_residual)
+        rows["cooks_distance"] = numbers(inf.cooks_distance)
+    return rows
 
 
 def alias_entry(alias, names: tuple[str, ...]) -> dict[str, Any]:

@@ -7,16 +7,26 @@ from pathlib import Path
 import orjson
 from flask import Blueprint, Flask, Response, current_app, request
 
-from ..stats.fit import TooFewObservations, fit
+from ..settings import Settings
+from ..stats.design import Design
+from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit
+from ..stats.hypotheses import HypothesisError, test_hypotheses
 from ..stats.lstsq import RankDeficient
+from ..stats.model import ModelSummary
+from ..stats.predict import predict
 from .arrays import invalid
-from .decode import decode_fit
-from .encode import alias_entry, encode_fit, json_response
-from .problems import ApiProblem, FieldError, body_limit_detail
+from .decode import decode_design, decode_fit, fit_options, load_request
+from .encode import (alias_entry, encode_fit, encode_hypothesis, encode_rows, intervals,
+                     json_response, number)
+from .model_io import decode_model, decode_new_rows, encode_model
+from .problems import ApiProblem, FieldError, body_limit_detail, pointer
+from .schemas import PredictRequestSchema, TestRequestSchema
 
 __all__ = ["init_app"]
 
 bp = Blueprint("v1", __name__)
+_PREDICT = PredictRequestSchema()
+_TEST = TestRequestSchema()
 OPENAPI = Path(__file__).resolve().parents[2] / "openapi" / "linfer.yaml"
 
 
@@ -47,24 +57,20 @@ def _json_body() -> tuple[object, int]:
                          "malformed_json") from None
 
 
-@bp.post("/v1/fit")
-def fit_endpoint() -> Response:
-    settings = current_app.config["LINFER_SETTINGS"]
-    body, booleans = _json_body()
-    req = decode_fit(body, settings, booleans)
-    design = req.design
+def _run_fit(design: Design, options: FitOptions, pointers: dict[str, str]) -> FitResult:
+    """Fit, turning the core's refusals into problems that point into the request."""
     try:
-        result = fit(design, req.options)
+        return fit(design, options)
     except TooFewObservations as err:
         dropped = design.rows_dropped_missing + design.rows_zero_weight
         why = (f" after {dropped} rows were dropped or had weight 0" if dropped else "")
-        raise invalid([FieldError("/table" if "/table" in "".join(req.column_pointers.values())
-                                  else "/design_matrix",
-                                  f"{err.n} observations{why} for {err.k} design columns: the "
-                                  "coefficients are not determined; send at least "
-                                  f"{err.k + 1} rows for any inference")]) from None
+        where = "/table" if any(p.startswith("/table") for p in pointers.values()) \
+            else "/design_matrix"
+        raise invalid([FieldError(where, f"{err.n} observations{why} for {err.k} design "
+                                  "columns: the coefficients are not determined; send at "
+                                  f"least {err.k + 1} rows for any inference")]) from None
     except RankDeficient as err:
-        errors = [FieldError(req.column_pointers.get(design.names[a.column], ""),
+        errors = [FieldError(pointers.get(design.names[a.column], ""),
                              alias_entry(a, design.names)["description"] + " (aliased)")
                   for a in err.aliases]
         raise ApiProblem(
@@ -74,7 +80,93 @@ def fit_endpoint() -> Response:
             + ". Remove the aliased columns, or set rank_deficiency to drop_aliased to fit "
               "the rest and report these as not estimable.",
             "rank_deficient", errors) from None
-    return json_response(encode_fit(result, req.column_pointers))
+    except HypothesisError as err:
+        raise _hypothesis_problem(err) from None
+
+
+def _hypothesis_problem(err: HypothesisError) -> ApiProblem:
+    parts: list[str | int] = ["hypotheses", err.hypothesis]
+    if err.restriction is not None:
+        parts += ["restrictions", err.restriction]
+        if err.name is not None:
+            parts += ["coefficients", err.name]
+    return invalid([FieldError(pointer(*parts), str(err))])
+
+
+def _request() -> tuple[Settings, object, int]:
+    body, booleans = _json_body()
+    return current_app.config["LINFER_SETTINGS"], body, booleans
+
+
+@bp.post("/v1/fit")
+def fit_endpoint() -> Response:
+    settings, body, booleans = _request()
+    req = decode_fit(body, settings, booleans)
+    result = _run_fit(req.design, req.options, req.column_pointers)
+    document = encode_fit(result, req.column_pointers)
+    if req.include_residuals:
+        document["rows"] = encode_rows(result)
+    if req.return_model:
+        document["model"] = encode_model(result.model)
+    return json_response(document)
+
+
+def _model_from(data: dict, body: dict, settings: Settings,
+                hypotheses: bool = False) -> tuple[ModelSummary, FitResult | None]:
+    """The model summary sent, or the one fitted from the data sent."""
+    if "model" in data:
+        return decode_model(data["model"], data["_strict"]), None
+    options = fit_options({**data, "hypotheses": []} if hypotheses else data, settings)
+    design, where = decode_design(data, body, settings)
+    result = _run_fit(design, options, where)
+    return result.model, result
+
+
+@bp.post("/v1/predict")
+def predict_endpoint() -> Response:
+    settings, body, booleans = _request()
+    data = load_request(_PREDICT, body, booleans)
+    levels = fit_options({**data, "hypotheses": []}, settings).levels
+    model, _ = _model_from(data, body, settings)
+    x, weights = decode_new_rows(data, body, model, settings)
+    predictions = predict(model, x, levels, data["kind"], weights)
+    notices = []
+    if model.residual_df <= 0:
+        notices.append({"code": "no_residual_df", "message": "The model has no residual "
+                        "degrees of freedom: standard errors and intervals are undefined.",
+                        "pointer": None})
+    for i, p in enumerate(predictions):
+        if not p.estimable:
+            notices.append({"code": "not_estimable", "message": (
+                f"New row {i} breaks the relation of an aliased column: the data do not "
+                "determine its mean, which is null."), "pointer": pointer(
+                    "new_rows" if "new_rows" in data else "new_table", i)})
+    return json_response({
+        "kind": data["kind"],
+        "covariance_kind": model.covariance_kind,
+        "residual_df": model.residual_df,
+        "predictions": [{"mean": number(p.mean), "standard_error": number(p.standard_error),
+                         "intervals": intervals(p.intervals)} for p in predictions],
+        "warnings": notices,
+    })
+
+
+@bp.post("/v1/test")
+def test_endpoint() -> Response:
+    settings, body, booleans = _request()
+    data = load_request(_TEST, body, booleans)
+    model, result = _model_from(data, body, settings, hypotheses=True)
+    hypotheses = fit_options(data, settings).hypotheses
+    rss = result.inference.fit.residual_sum_of_squares if result is not None else (
+        model.residual_variance * model.residual_df
+        if model.covariance_kind == "classical" else None)
+    try:
+        tests = test_hypotheses(model, hypotheses, residual_sum_of_squares=rss)
+    except HypothesisError as err:
+        raise _hypothesis_problem(err) from None
+    return json_response({"covariance_kind": model.covariance_kind,
+                          "residual_df": model.residual_df,
+                          "hypotheses": [encode_hypothesis(h) for h in tests]})
 
 
 @bp.get("/healthz")

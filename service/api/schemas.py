@@ -13,9 +13,12 @@ from typing import Any
 
 from marshmallow import RAISE, Schema, ValidationError, fields, validate, validates_schema
 
+from ..stats.covariance import KINDS as COVARIANCE_KINDS
+from ..stats.inference import SIMULTANEOUS
+from ..stats.predict import KINDS as PREDICTION_KINDS
 from .problems import FieldError, pointer
 
-__all__ = ["FitRequestSchema", "flatten_errors"]
+__all__ = ["FitRequestSchema", "PredictRequestSchema", "TestRequestSchema", "flatten_errors"]
 
 
 class StrictBoolean(fields.Field):
@@ -46,7 +49,91 @@ class Name(fields.String):
         super().__init__(validate=validate.Length(min=1, max=200), **kwargs)
 
 
-class FitRequestSchema(Schema):
+class Number(fields.Field):
+    """A finite JSON number (not a boolean, not a string)."""
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ValidationError("must be a number")
+        value = float(value)
+        if not math.isfinite(value):
+            raise ValidationError("must be a finite number")
+        return value
+
+
+class NullableNumber(Number):
+    """A finite JSON number or null (a figure the service itself reports as undefined)."""
+
+    def __init__(self, **kwargs: Any):
+        super().__init__(allow_none=True, **kwargs)
+
+
+class Count(fields.Field):
+    """A non-negative JSON integer."""
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+            raise ValidationError("must be a non-negative integer")
+        return value
+
+
+class RestrictionSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    coefficients = fields.Dict(keys=Name(), values=Number(), required=True,
+                               validate=validate.Length(min=1))
+    equals = Number(load_default=0.0)
+
+
+class HypothesisSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    label = fields.String(validate=validate.Length(max=200), allow_none=True,
+                          load_default=None)
+    restrictions = fields.List(fields.Nested(RestrictionSchema), required=True,
+                               validate=validate.Length(min=1))
+
+
+class RelationTermSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    column = Name(required=True)
+    multiplier = Number(required=True)
+
+
+class AliasSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    column = Name(required=True)
+    relation = fields.List(fields.Nested(RelationTermSchema), required=True)
+    description = fields.String()
+
+
+class ModelSchema(Schema):
+    """The compact model summary that /v1/fit returns with ``return_model: true``."""
+
+    class Meta:
+        unknown = RAISE
+
+    version = fields.Integer(required=True, strict=True, validate=validate.Equal(1))
+    names = fields.List(Name(), required=True, validate=validate.Length(min=1))
+    intercept = StrictBoolean(required=True)
+    estimates = fields.Raw(required=True)
+    covariance = fields.Raw(required=True)
+    covariance_kind = fields.String(required=True, validate=validate.OneOf(COVARIANCE_KINDS))
+    residual_variance = NullableNumber(required=True)
+    residual_df = Count(required=True)
+    n_observations = Count(required=True)
+    aliased = fields.List(fields.Nested(AliasSchema), load_default=list)
+
+
+class _Layout(Schema):
+    """The data fields shared by every endpoint that can take rows."""
+
     class Meta:
         unknown = RAISE
 
@@ -64,17 +151,33 @@ class FitRequestSchema(Schema):
                             load_default="reject")
     rank_deficiency = fields.String(validate=validate.OneOf(["reject", "drop_aliased"]),
                                     load_default="reject")
+    covariance = fields.String(validate=validate.OneOf(COVARIANCE_KINDS),
+                               load_default="classical")
 
-    @validates_schema
-    def _one_layout(self, data: dict[str, Any], **kwargs: Any) -> None:
+    model_allowed = False
+
+    @validates_schema(pass_original=True)
+    def _one_layout(self, data: dict[str, Any], original: Any, **kwargs: Any) -> None:
         matrix = "design_matrix" in data or "response" in data
         table = "table" in data
+        model = "model" in data
+        if model:
+            clash = [name for name in ("design_matrix", "response", "table", "column_names",
+                                       "response_column", "predictor_columns", "weights",
+                                       "intercept", "missing", "rank_deficiency", "covariance")
+                     if isinstance(original, dict) and name in original]
+            if clash:
+                raise ValidationError({name: ["does not go with model: the model summary "
+                                              "replaces the data"] for name in clash})
+            return
         if matrix and table:
             raise ValidationError("send either design_matrix and response, or table, not both",
                                   field_name="table")
         if not matrix and not table:
-            raise ValidationError("send the data as design_matrix and response, or as table "
-                                  "with response_column", field_name="_schema")
+            what = ("a model summary (model), or the data as design_matrix and response, "
+                    "or as table with response_column" if self.model_allowed else
+                    "the data as design_matrix and response, or as table with response_column")
+            raise ValidationError(f"send {what}", field_name="_schema")
         # A missing member cannot be pointed at: its error points at the object
         # that lacks it ("" is the whole document) and names it.
         errors: dict[str, list[str]] = {}
@@ -99,6 +202,46 @@ class FitRequestSchema(Schema):
             errors["_schema"] = absent
         if errors:
             raise ValidationError(errors)
+
+
+class FitRequestSchema(_Layout):
+    """POST /v1/fit."""
+
+    simultaneous = fields.String(validate=validate.OneOf(SIMULTANEOUS), allow_none=True,
+                                 load_default=None)
+    hypotheses = fields.List(fields.Nested(HypothesisSchema), load_default=list)
+    include = fields.List(fields.String(validate=validate.OneOf(["residuals", "influence"])),
+                          load_default=list)
+    return_model = StrictBoolean(load_default=False)
+
+
+class PredictRequestSchema(_Layout):
+    """POST /v1/predict: a model summary or the data, and the new rows."""
+
+    model_allowed = True
+    model = fields.Nested(ModelSchema)
+    new_rows = fields.Raw()
+    new_table = fields.Dict(keys=Name(), values=fields.Raw())
+    new_weights = fields.Raw()
+    kind = fields.String(validate=validate.OneOf(PREDICTION_KINDS), load_default="mean")
+
+    @validates_schema
+    def _new_data(self, data: dict[str, Any], **kwargs: Any) -> None:
+        if ("new_rows" in data) == ("new_table" in data):
+            raise ValidationError("send the new rows as exactly one of new_rows or new_table",
+                                  field_name="_schema")
+        if "new_weights" in data and data.get("kind") != "observation":
+            raise ValidationError("weights of new rows matter only for kind observation",
+                                  field_name="new_weights")
+
+
+class TestRequestSchema(_Layout):
+    """POST /v1/test: a model summary or the data, and the hypotheses."""
+
+    model_allowed = True
+    model = fields.Nested(ModelSchema)
+    hypotheses = fields.List(fields.Nested(HypothesisSchema), required=True,
+                             validate=validate.Length(min=1))
 
 
 def flatten_errors(messages: Any, prefix: tuple[str | int, ...] = ()) -> list[FieldError]:
