@@ -44,3 +44,13 @@ def demo_table():
     """client_examples/data/warehouse_energy_table.json: a /v1/fit body in the table layout."""
     with DEMO_TABLE.open(encoding="utf-8") as fh:
         return json.load(fh)
+
+
+@pytest.fixture(autouse=True)
+def contract_checked_clients(monkeypatch):
+    """Every Flask test client in the suite validates its responses against the contract."""
+    from flask import Flask
+
+    from contract import ContractClient
+
+    monkeypatch.setattr(Flask, "test_client_class", ContractClient)
