@@ -17,6 +17,8 @@ from ..settings import Settings
 from ..stats.design import INTERCEPT, Design, build_design
 from ..stats.fit import FitOptions
 from ..stats.hypotheses import Hypothesis, Restriction
+from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term,
+                           TermError, expand_terms)
 from .arrays import MAX_POINTED, as_matrix, as_vector, invalid
 from .problems import FieldError, pointer
 from .schemas import FitRequestSchema, flatten_errors
@@ -132,7 +134,7 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
         _reject_missing(arrays)
     where = {name: (pointer("column_names", j) if "column_names" in data
                     else pointer("design_matrix", 0, j)) for j, name in enumerate(names)}
-    return x, y, w, names, where
+    return x, y, w, names, where, None, ()
 
 
 def _table_layout(data: dict[str, Any], settings: Settings):
@@ -148,8 +150,11 @@ def _table_layout(data: dict[str, Any], settings: Settings):
                                       f"(columns: {', '.join(table)})")])
         if weight_col == response:
             raise invalid([FieldError("/weights", "names the response column")])
-    if "predictor_columns" in data:
-        predictors = data["predictor_columns"]
+    terms = data.get("terms")
+    if terms is not None:
+        predictors, categorical = _term_columns(terms, table, response, weight_col)
+    elif "predictor_columns" in data:
+        predictors, categorical = data["predictor_columns"], []
         seen: dict[str, int] = {}
         for i, name in enumerate(predictors):
             at = pointer("predictor_columns", i)
@@ -164,7 +169,7 @@ def _table_layout(data: dict[str, Any], settings: Settings):
                                           f"/predictor_columns/{seen[name]})")])
             seen[name] = i
     else:
-        predictors = [c for c in table if c not in (response, weight_col)]
+        predictors, categorical = [c for c in table if c not in (response, weight_col)], []
     if data["intercept"] and INTERCEPT in predictors:
         raise invalid([FieldError(pointer("table", INTERCEPT),
                                   "'intercept' names the column of ones the service adds; "
@@ -179,7 +184,7 @@ def _table_layout(data: dict[str, Any], settings: Settings):
             raise invalid([FieldError(pointer("table", name), f"has {col.shape[0]} values; "
                                       f"the response column {response!r} has {n}")])
         columns.append(col)
-    x = np.column_stack(columns) if columns else np.empty((n, 0))
+    labels = {name: _labels(table[name], name, n) for name in categorical}
     w = None
     if weight_col is not None:
         w = as_vector(table[weight_col], ("table", weight_col), data["_strict"])
@@ -189,12 +194,86 @@ def _table_layout(data: dict[str, Any], settings: Settings):
         _check_weights(w, n, ("weights",))
     if data["missing"] == "reject":
         arrays = [(col, ("table", name), False) for col, name in zip(columns, predictors)]
+        arrays += [(np.array([np.nan if v is None else 0.0 for v in values]),
+                    ("table", name), False) for name, values in labels.items()]
         arrays.append((y, ("table", response), False))
         if w is not None:
             arrays.append((w, ("table", weight_col) if weight_col else ("weights",), False))
         _reject_missing(arrays)
-    where = {name: pointer("table", name) for name in predictors}
-    return x, y, w, predictors, where
+    if terms is None:
+        x = np.column_stack(columns) if columns else np.empty((n, 0))
+        where = {name: pointer("table", name) for name in predictors}
+        return x, y, w, predictors, where, None, ()
+    try:
+        expanded = expand_terms(tuple(terms), dict(zip(predictors, columns)), labels)
+    except TermError as err:
+        at = pointer("terms", err.index, *([err.field] if err.field else []))
+        raise invalid([FieldError(at, str(err))]) from None
+    _check_limits(n, len(expanded.names) + int(data["intercept"]), "/terms", settings)
+    if data["intercept"] and INTERCEPT in expanded.names:
+        raise invalid([FieldError("/terms", "a term makes a column named 'intercept', the "
+                                  "name of the column of ones the service adds")])
+    where = {}
+    for i, info in enumerate(expanded.terms):
+        for name in info.columns:
+            where[name] = pointer("terms", i)
+    return (expanded.matrix, y, w, list(expanded.names), where, expanded.exact,
+            expanded.terms)
+
+
+def _term_columns(terms: list[Term], table: dict[str, Any], response: str,
+                  weight_col: str | None) -> tuple[list[str], list[str]]:
+    """The raw numeric and categorical columns that ``terms`` use, checked against the table."""
+    numeric: list[str] = []
+    categorical: list[str] = []
+    for i, term in enumerate(terms):
+        if isinstance(term, ColumnTerm):
+            used, field = [term.column], None
+        elif isinstance(term, PowerTerm):
+            used, field = [term.column], "column"
+        elif isinstance(term, ProductTerm):
+            used, field = list(term.columns), "product"
+        else:
+            used, field = [term.column], "categorical"
+        at = pointer("terms", i, *([field] if field else []))
+        for name in used:
+            if name not in table:
+                raise invalid([FieldError(at, f"{name!r} names no column of table")])
+            if name == response:
+                raise invalid([FieldError(at, f"{name!r} is the response column")])
+            if name == weight_col:
+                raise invalid([FieldError(at, f"{name!r} is the weights column")])
+        target = categorical if isinstance(term, CategoricalTerm) else numeric
+        for name in used:
+            if name not in target:
+                target.append(name)
+    both = set(numeric) & set(categorical)
+    if both:
+        name = sorted(both)[0]
+        raise invalid([FieldError(pointer("table", name), f"{name!r} is used both as a number "
+                                  "and as a categorical column")])
+    return numeric, categorical
+
+
+def _labels(values: Any, name: str, n: int) -> list:
+    """The values of a categorical column: text or numbers (null is missing)."""
+    where = ("table", name)
+    if not isinstance(values, list):
+        raise invalid([FieldError(pointer(*where), "must be a list of levels")])
+    if len(values) != n:
+        raise invalid([FieldError(pointer(*where), f"has {len(values)} values; the response "
+                                  f"column has {n}")])
+    kinds = set()
+    for i, v in enumerate(values):
+        if v is None:
+            continue
+        if isinstance(v, bool) or not isinstance(v, (str, int, float)):
+            raise invalid([FieldError(pointer(*where, i), "a level must be text or a number")])
+        kinds.add(str if isinstance(v, str) else float)
+    if len(kinds) > 1:
+        raise invalid([FieldError(pointer(*where), "mixes text and numbers as levels; send "
+                                  "all levels as text")])
+    return values
 
 
 def _strict(body: dict[str, Any], boolean_literals: int) -> bool:
@@ -212,8 +291,9 @@ def decode_design(data: dict[str, Any], body: dict[str, Any],
     if "table" in data:
         data["table"] = body["table"]  # the body's own dict: its column order is the caller's
     layout = _table_layout if "table" in data else _matrix_layout
-    x, y, w, names, where = layout(data, settings)
-    design = build_design(x, y, tuple(names), intercept=data["intercept"], weights=w)
+    x, y, w, names, where, exact, terms = layout(data, settings)
+    design = build_design(x, y, tuple(names), intercept=data["intercept"], weights=w,
+                          exact=exact, terms=terms)
     if data["intercept"]:
         where[INTERCEPT] = "/intercept"
     return design, where

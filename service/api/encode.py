@@ -43,7 +43,7 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
         "simultaneous_intervals": intervals(c.simultaneous_intervals),
         "vif": number(c.vif),
     } for c in inf.coefficients]
-    return {
+    document = {
         "n_observations": inf.n_observations,
         "n_parameters": inf.n_parameters,
         "residual_df": inf.residual_df,
@@ -100,6 +100,12 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
             "estimated_correct_digits": round(result.numerics.estimated_correct_digits, 2),
         },
     }
+    if design.terms:
+        document["terms"] = [{"name": t.name, "kind": t.kind, "columns": list(t.columns),
+                              **({"levels": list(t.levels), "reference": t.reference}
+                                 if t.kind == "categorical" else {})}
+                             for t in design.terms]
+    return document
 
 
 def intervals(items) -> list[dict[str, Any]]:

@@ -16,6 +16,7 @@ from marshmallow import RAISE, Schema, ValidationError, fields, validate, valida
 from ..stats.covariance import KINDS as COVARIANCE_KINDS
 from ..stats.inference import SIMULTANEOUS
 from ..stats.predict import KINDS as PREDICTION_KINDS
+from ..stats.terms import CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term
 from .problems import FieldError, pointer
 
 __all__ = ["FitRequestSchema", "PredictRequestSchema", "TestRequestSchema", "flatten_errors"]
@@ -75,6 +76,44 @@ class Count(fields.Field):
         if isinstance(value, bool) or not isinstance(value, int) or value < 0:
             raise ValidationError("must be a non-negative integer")
         return value
+
+
+class TermField(fields.Field):
+    """A model term: a column name, a power, a product or a categorical column."""
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> Term:
+        if isinstance(value, str) and value:
+            return ColumnTerm(value)
+        if not isinstance(value, dict):
+            raise ValidationError("must be a column name, or an object with column and "
+                                  "power, product, or categorical")
+        keys = set(value)
+        if keys == {"column", "power"}:
+            power = value["power"]
+            if isinstance(power, bool) or not isinstance(power, int) or not 2 <= power <= 20:
+                raise ValidationError("power must be a whole number from 2 to 20")
+            if not isinstance(value["column"], str) or not value["column"]:
+                raise ValidationError("column must be a column name")
+            return PowerTerm(value["column"], power)
+        if keys == {"product"}:
+            cols = value["product"]
+            if (not isinstance(cols, list) or len(cols) < 2
+                    or not all(isinstance(c, str) and c for c in cols)):
+                raise ValidationError("product must list two or more column names")
+            if len(set(cols)) != len(cols):
+                raise ValidationError("product repeats a column; use a power for that")
+            return ProductTerm(tuple(cols))
+        if keys in ({"categorical"}, {"categorical", "reference"}):
+            col = value["categorical"]
+            if not isinstance(col, str) or not col:
+                raise ValidationError("categorical must be a column name")
+            ref = value.get("reference")
+            if isinstance(ref, bool) or not (ref is None or isinstance(ref, (str, int, float))):
+                raise ValidationError("reference must be a level of the column")
+            return CategoricalTerm(col, ref)
+        raise ValidationError("a term object is {\"column\", \"power\"}, {\"product\"} or "
+                              "{\"categorical\"} with an optional \"reference\"; got keys "
+                              + ", ".join(sorted(map(str, keys))))
 
 
 class RestrictionSchema(Schema):
@@ -144,6 +183,7 @@ class _Layout(Schema):
                         values=fields.Raw())
     response_column = Name()
     predictor_columns = fields.List(Name())
+    terms = fields.List(TermField(), validate=validate.Length(min=1))
     intercept = StrictBoolean(load_default=True)
     levels = fields.List(Level(), validate=validate.Length(min=1), load_default=lambda: [0.95])
     weights = fields.Raw()
@@ -163,7 +203,7 @@ class _Layout(Schema):
         model = "model" in data
         if model:
             clash = [name for name in ("design_matrix", "response", "table", "column_names",
-                                       "response_column", "predictor_columns", "weights",
+                                       "response_column", "predictor_columns", "terms", "weights",
                                        "intercept", "missing", "rank_deficiency", "covariance")
                      if isinstance(original, dict) and name in original]
             if clash:
@@ -186,7 +226,7 @@ class _Layout(Schema):
             for name in ("design_matrix", "response"):
                 if name not in data:
                     absent.append(f"{name} is required with the design_matrix layout")
-            for name in ("response_column", "predictor_columns"):
+            for name in ("response_column", "predictor_columns", "terms"):
                 if name in data:
                     errors[name] = ["belongs to the table layout; with design_matrix, "
                                     "use column_names"]
@@ -198,6 +238,8 @@ class _Layout(Schema):
             if "column_names" in data:
                 errors["column_names"] = ["belongs to the design_matrix layout; with table, "
                                           "use predictor_columns"]
+            if "terms" in data and "predictor_columns" in data:
+                errors["terms"] = ["send terms or predictor_columns, not both"]
         if absent:
             errors["_schema"] = absent
         if errors:

@@ -6,6 +6,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .terms import ExactColumns, TermInfo
+
 __all__ = ["Design", "build_design", "INTERCEPT"]
 
 INTERCEPT = "intercept"
@@ -41,6 +43,8 @@ class Design:
     rows_used: np.ndarray
     rows_dropped_missing: int
     rows_zero_weight: int
+    exact: ExactColumns | None = None
+    terms: tuple[TermInfo, ...] = ()
 
     @property
     def n_observations(self) -> int:
@@ -48,7 +52,9 @@ class Design:
 
 
 def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str, ...], *,
-                 intercept: bool = True, weights: np.ndarray | None = None) -> Design:
+                 intercept: bool = True, weights: np.ndarray | None = None,
+                 exact: ExactColumns | None = None,
+                 terms: tuple[TermInfo, ...] = ()) -> Design:
     """Assemble the design from validated arrays.
 
     Parameters
@@ -62,6 +68,8 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
         Prepend a column of ones named ``"intercept"``.
     weights : (n,) float array or None
         Non-negative; rows of weight zero are left out of the fit.
+    exact, terms : from :func:`service.stats.terms.expand_terms`, when the predictors
+        were built from model terms
     """
     n = response.shape[0]
     bad = np.isnan(response) | np.isnan(predictors).any(axis=1)
@@ -85,6 +93,9 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
     if intercept:
         x = np.column_stack([np.ones(x.shape[0]), x])
         names = (INTERCEPT,) + tuple(names)
+        if exact is not None:
+            exact = exact.with_intercept()
     return Design(matrix=np.ascontiguousarray(x, dtype=float), response=y, weights=w,
                   names=tuple(names), intercept=intercept, rows_used=rows,
-                  rows_dropped_missing=dropped_missing, rows_zero_weight=zero)
+                  rows_dropped_missing=dropped_missing, rows_zero_weight=zero,
+                  exact=exact, terms=terms)

@@ -181,7 +181,10 @@ def fit(design: Design, options: FitOptions) -> FitResult:
                      centered=design.intercept, drop_aliased=options.drop_aliased,
                      extended_max_work=options.extended_max_work,
                      extended_below_digits=options.extended_below_digits,
-                     want_projection=robust or options.include_influence)
+                     want_projection=robust or options.include_influence,
+                     exact_columns=None if design.exact is None else (
+                         lambda columns, exponents: design.exact.mp_columns(
+                             design.rows_used, columns, exponents)))
     log_w = 0.0 if design.weights is None else math.fsum(np.log(design.weights).tolist())
     result = infer(solution, design.names, n, centered=design.intercept,
                    levels=options.levels, log_weight_sum=log_w,

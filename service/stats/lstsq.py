@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Callable
 
 import mpmath
 import numpy as np
@@ -295,15 +296,16 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
                  digits=min(FULL_DIGITS, -math.log10(worst)))
 
 
-def _extended_path(xs: np.ndarray, ys: np.ndarray, w: np.ndarray | None, centered: bool,
-                   kappa: float) -> _Core:
-    n, k = xs.shape
+def _extended_path(columns: Callable[[], list[list[mpmath.mpf]]], ys: np.ndarray,
+                   w: np.ndarray | None, centered: bool, kappa: float) -> _Core:
+    n = ys.shape[0]
     dps = int(min(150, max(34, 30 + 2 * math.log10(max(kappa, 1.0)))))
     mpf = mpmath.mpf
     fdot = mpmath.fdot
     fsum = mpmath.fsum
     with mpmath.workprec(int(dps * 3.33) + 8):
-        cols = [[mpf(v) for v in xs[:, j].tolist()] for j in range(k)]
+        cols = columns()
+        k = len(cols)
         y = [mpf(v) for v in ys.tolist()]
         if w is None:
             wcols = cols
@@ -347,7 +349,9 @@ def _extended_path(xs: np.ndarray, ys: np.ndarray, w: np.ndarray | None, centere
 
 def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
           centered: bool, drop_aliased: bool = False, extended_max_work: int = 200_000,
-          extended_below_digits: float = 13.5, want_projection: bool = False) -> LeastSquares:
+          extended_below_digits: float = 13.5, want_projection: bool = False,
+          exact_columns: Callable[[list[int], np.ndarray], list[list[mpmath.mpf]]] | None = None,
+          ) -> LeastSquares:
     """Solve the weighted least-squares problem ``min sum_i w_i (y_i - x_i b)^2``.
 
     Parameters
@@ -367,6 +371,11 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         Take the extended-precision path when the double-precision estimate of
         correct digits is below ``extended_below_digits`` and ``n * k**2`` is at most
         ``extended_max_work``.
+    exact_columns : callable or None
+        ``exact_columns(columns, exponents)`` returns design columns (by index) times
+        ``2**-exponents`` as mpmath numbers, exactly, for the extended-precision path;
+        for columns formed from raw data (powers, products) more exactly than ``x``
+        holds them. Default: the doubles of ``x``.
     want_projection : bool
         Also return the :class:`Projection` (an n x rank array: ask only when robust
         covariances or per-row influence are wanted).
@@ -432,8 +441,16 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         method = "householder_qr"
         if (core.digits < extended_below_digits
                 and n * len(kept) ** 2 <= extended_max_work):
-            xs = np.ldexp(x[:, kept], -e_col[kept][None, :])
-            core = _extended_path(xs, ys, weights, centered, kappa)
+            if exact_columns is not None:
+                def columns():
+                    return exact_columns(kept, e_col[kept])
+            else:
+                xs = np.ldexp(x[:, kept], -e_col[kept][None, :])
+
+                def columns():
+                    return [[mpmath.mpf(v) for v in xs[:, j].tolist()]
+                            for j in range(xs.shape[1])]
+            core = _extended_path(columns, ys, weights, centered, kappa)
             method = "extended_precision"
     else:
         method = "householder_qr"
