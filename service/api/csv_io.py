@@ -1,0 +1,451 @@
+"""CSV for spreadsheets: a /v1/fit body from a CSV upload, and the coefficient table as CSV.
+
+Pure functions; no Flask. :func:`table_body_from_csv` turns the bytes of a CSV file
+with a header row, and the request's query parameters, into a /v1/fit body in the
+``table`` layout, which then goes through the same validation as JSON.
+:func:`coefficients_csv` writes the coefficient table of a /v1/fit document.
+
+Reading rules (each decided, each tested):
+
+- The body is UTF-8 (a leading byte order mark, as Excel writes it, is dropped).
+  Fields are separated by commas and may be quoted with ``"`` (RFC 4180). The first
+  non-blank record is the header; blank lines are skipped.
+- Header names are stripped of surrounding spaces and tabs; each must be non-empty
+  and unique.
+- Every row has as many fields as the header.
+- No type inference: every cell of a column that is sent is a decimal number
+  (``-1.5``, ``2e-3``, spaces around it allowed) or empty (missing, sent as
+  ``null``). ``true``, ``NA``, ``nan``, ``inf``, ``1,5`` or a date are not numbers
+  and are answered with the row and column. Columns the fit does not use (when
+  ``predictor_columns`` is given) are not sent and need not be numeric.
+- Rows are counted from 0 after the header, as in the equivalent table layout
+  (``/table/<column>/<row>``); messages also give the CSV line number (the header is
+  line 1 in a file without blank or multi-line records).
+
+Files whose data are plain numbers are read by pandas' C parser in one pass;
+anything else (missing cells, quotes, text in unused columns, an error to point at)
+is read record by record with :mod:`csv`, which knows the line of each record. Both
+paths give the same answer for every input.
+
+Status codes: 400 (``malformed_csv``) when the bytes cannot be read as a table
+(empty, not UTF-8, broken quoting, rows of the wrong length); 422
+(``invalid_request``) for the content (a query parameter, a header name, a cell).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import re
+from array import array
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from .arrays import MAX_POINTED, invalid
+from .problems import ApiProblem, FieldError, pointer
+
+__all__ = ["table_body_from_csv", "coefficients_csv", "QUERY_PARAMETERS", "CSV_MEDIA_TYPE"]
+
+CSV_MEDIA_TYPE = "text/csv"
+
+#: The query parameters of ``POST /v1/fit`` with a CSV body, and the kind of each.
+QUERY_PARAMETERS: dict[str, str] = {
+    "response_column": "name",
+    "predictor_columns": "names",
+    "weights": "name",
+    "levels": "numbers",
+    "intercept": "boolean",
+    "missing": "word",
+    "rank_deficiency": "word",
+    "covariance": "word",
+    "simultaneous": "word_or_none",
+    "include": "words",
+    "return_model": "boolean",
+}
+_LISTS = {"names", "numbers", "words"}
+
+# A decimal number with optional spaces or tabs around it: what a cell may hold.
+_NUMBER = re.compile(r"[ \t]*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?[ \t]*")
+# Bytes that cells of plain numbers are made of; data holding only these take the
+# fast path (pandas would read "true" as 1.0 and "inf" as infinity: they hold others).
+_NUMERIC_BYTES = b"0123456789+-.eE \t,\r\n\""
+_MISSING_MARKERS = {"na", "n/a", "#n/a", "nan", "null", "none", "-", ".", "?"}
+_QUOTED_MAX = 40
+
+
+def _malformed(detail: str) -> ApiProblem:
+    return ApiProblem(400, "Malformed CSV", detail, "malformed_csv")
+
+
+def _quote(text: str) -> str:
+    return repr(text if len(text) <= _QUOTED_MAX else text[:_QUOTED_MAX] + "...")
+
+
+# --- query parameters --------------------------------------------------------------------
+
+def _values(query: Mapping[str, Any], key: str) -> list[str]:
+    if hasattr(query, "getlist"):  # a werkzeug MultiDict (request.args): every value
+        return [str(v) for v in query.getlist(key)]
+    value = query[key]
+    if isinstance(value, (list, tuple)):
+        return [str(v) for v in value]
+    return [str(value)]
+
+
+def _split(values: list[str]) -> list[str]:
+    return [part.strip() for v in values for part in v.split(",")]
+
+
+def _options(query: Mapping[str, Any]) -> dict[str, Any]:
+    """The body's options from the query parameters; one 422 with every fault."""
+    errors: list[FieldError] = []
+    options: dict[str, Any] = {}
+    for key in query:
+        kind = QUERY_PARAMETERS.get(key)
+        if kind is None:
+            errors.append(FieldError("", f"unknown query parameter {key!r}; the parameters "
+                                     f"are {', '.join(QUERY_PARAMETERS)}"))
+            continue
+        values = _values(query, key)
+        if kind not in _LISTS and len(values) > 1:
+            errors.append(FieldError(pointer(key), f"query parameter {key} is given "
+                                     f"{len(values)} times; give it once"))
+            continue
+        if kind in _LISTS:
+            parts = _split(values)
+            empty = [i for i, p in enumerate(parts) if not p]
+            if empty:
+                errors.append(FieldError(pointer(key, empty[0]), f"query parameter {key} "
+                                         f"has an empty item at position {empty[0]} "
+                                         "(items are separated by commas)"))
+                continue
+            if kind == "numbers":
+                bad = [i for i, p in enumerate(parts) if not _NUMBER.fullmatch(p)]
+                for i in bad:
+                    errors.append(FieldError(pointer(key, i), f"query parameter {key}: "
+                                             f"{_quote(parts[i])} is not a number"))
+                if bad:
+                    continue
+                options[key] = [float(p) for p in parts]
+            else:
+                options[key] = parts
+            continue
+        value = values[0].strip()
+        if kind == "boolean":
+            if value.lower() not in ("true", "false"):
+                errors.append(FieldError(pointer(key), f"query parameter {key} must be true "
+                                         f"or false, not {_quote(value)}"))
+                continue
+            options[key] = value.lower() == "true"
+        elif kind == "word_or_none":
+            options[key] = None if value.lower() in ("", "none", "null") else value
+        else:
+            if not value:
+                errors.append(FieldError(pointer(key), f"query parameter {key} is empty"))
+                continue
+            options[key] = value
+    if "response_column" not in query:
+        errors.insert(0, FieldError("", "query parameter response_column is required: it "
+                                    "names the CSV column that holds the response"))
+    if errors:
+        raise invalid(errors, f"{len(errors)} query parameter problem(s): "
+                      + "; ".join(e.message for e in errors[:3]))
+    return options
+
+
+# --- reading the table -------------------------------------------------------------------
+
+def _decode(raw: bytes) -> str:
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as err:
+        line = raw.count(b"\n", 0, err.start) + 1
+        raise _malformed(f"the body is not UTF-8 text: byte 0x{raw[err.start]:02x} at offset "
+                         f"{err.start} (line {line}) cannot be decoded; save the file as "
+                         "CSV UTF-8") from None
+    if not text.strip():
+        raise _malformed("the CSV body is empty: send a header row naming the columns, then "
+                         "one row per observation")
+    return text
+
+
+def _blank(record: list[str]) -> bool:
+    """An empty line, or one of spaces and tabs only: skipped (as pandas skips it)."""
+    return not record or (len(record) == 1 and not record[0].strip(" \t"))
+
+
+def _records(text: str):
+    """(first line, fields) of every non-blank record; 400 on broken quoting."""
+    reader = csv.reader(io.StringIO(text, newline=""))
+    line = 0
+    while True:
+        start = line + 1
+        try:
+            record = next(reader)
+        except StopIteration:
+            return
+        except csv.Error as err:
+            raise _malformed(f"the CSV cannot be read at line {reader.line_num}: {err}") from None
+        line = reader.line_num
+        if not _blank(record):
+            yield start, record
+
+
+def _header(text: str) -> tuple[list[str], int]:
+    """The header names (stripped) and the header's line number; 422 on bad names."""
+    first = next(_records(text), None)
+    if first is None:  # pragma: no cover - _decode has refused blank bodies
+        raise _malformed("the CSV has no header row")
+    line, names = first
+    names = [n.strip(" \t") for n in names]
+    errors = []
+    seen: dict[str, int] = {}
+    for j, name in enumerate(names):
+        if not name:
+            errors.append(FieldError("/table", f"column {j + 1} of the header (CSV line "
+                                     f"{line}) has no name; name every column (a comma at "
+                                     "the end of the header makes an unnamed column)"))
+        elif name in seen:
+            errors.append(FieldError(pointer("table", name), f"columns {seen[name] + 1} and "
+                                     f"{j + 1} of the header (CSV line {line}) are both "
+                                     f"named {name!r}"))
+        else:
+            seen[name] = j
+    if errors:
+        raise invalid(errors, errors[0].message if len(errors) == 1 else
+                      f"{len(errors)} problems with the CSV header; the first: "
+                      + errors[0].message)
+    return names, line
+
+
+def _fast(raw: bytes, k: int) -> np.ndarray | None:
+    """All columns as floats by pandas' C parser, or None when the careful path must decide.
+
+    Taken only when the header is the first line, without quotes, and the data
+    hold nothing but the bytes of plain numbers: then pandas accepts exactly what
+    the careful path accepts (the tests check this), and NaN only marks an empty
+    cell or a short row, which a structural pass tells apart.
+    """
+    end = raw.find(b"\n")
+    if end < 0 or b'"' in raw[:end] or not raw[:end].strip():
+        return None
+    data = raw[end + 1:]
+    if data.translate(None, _NUMERIC_BYTES):
+        return None
+    try:
+        frame = pd.read_csv(io.BytesIO(data), header=None, engine="c", dtype=float,
+                            keep_default_na=False, na_values=[""], skip_blank_lines=True)
+    except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
+        return None
+    values = frame.to_numpy(dtype=float)
+    if values.shape[1] != k or np.isinf(values).any():
+        return None
+    return values
+
+
+def _structure_agrees(text: str, k: int, n: int) -> bool:
+    """Whether every data record has k fields and there are n of them (csv's count)."""
+    records = _records(text)
+    next(records)
+    count = 0
+    for _, record in records:
+        if len(record) != k:
+            return False
+        count += 1
+    return count == n
+
+
+def _careful(text: str, header: list[str], used: Sequence[int]) -> tuple[int, list[np.ndarray]]:
+    """The used columns, read record by record: 400 on ragged rows, 422 on bad cells."""
+    k = len(header)
+    records = _records(text)
+    next(records)
+    lines = array("q")
+    cells: list[list[str]] = [[] for _ in used]
+    ragged: list[tuple[int, int, int]] = []
+    row = 0
+    for line, record in records:
+        if len(record) != k:
+            ragged.append((row, line, len(record)))
+        else:
+            for column, j in zip(cells, used):
+                column.append(record[j])
+        lines.append(line)
+        row += 1
+    if ragged:
+        r, line, width = ragged[0]
+        first = f"row {r} (CSV line {line}) has {width} fields; the header has {k}"
+        raise _malformed(first if len(ragged) == 1 else
+                         f"{len(ragged)} rows have a different number of fields from the "
+                         f"header; the first: {first}")
+    columns = []
+    bad: list[tuple[int, int, str, str]] = []  # row, position in used, cell, why
+    for position, strings in enumerate(cells):
+        values = np.empty(len(strings))
+        for i, cell in enumerate(strings):
+            stripped = cell.strip(" \t")
+            if not stripped:
+                values[i] = math.nan
+            elif _NUMBER.fullmatch(stripped):
+                values[i] = float(stripped)
+                if math.isinf(values[i]):
+                    bad.append((i, position, cell, "is too large for a double-precision "
+                                "number"))
+            else:
+                why = "is not a number"
+                if stripped.lower() in _MISSING_MARKERS:
+                    why += "; leave the cell empty for a missing value"
+                elif re.fullmatch(r"[ \t]*[+-]?[0-9]+,[0-9]+[ \t]*", cell):
+                    why += "; write the decimal point as '.'"
+                bad.append((i, position, cell, why))
+        columns.append(values)
+    if bad:
+        bad.sort()
+        errors = [FieldError(pointer("table", header[used[p]], i),
+                             f"row {i} (CSV line {lines[i]}), column {header[used[p]]}: "
+                             f"{_quote(cell)} {why}") for i, p, cell, why in bad[:MAX_POINTED]]
+        raise invalid(errors, errors[0].message if len(bad) == 1 else
+                      f"{len(bad)} cells of the CSV cannot be read as numbers; the first: "
+                      + errors[0].message)
+    return row, columns
+
+
+def _used_columns(header: list[str], options: dict[str, Any]) -> list[int]:
+    """Positions of the columns to send; 422 for names the header lacks."""
+    position = {name: j for j, name in enumerate(header)}
+    columns = ", ".join(header)
+    hint = ""
+    if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
+        sep = next(s for s in ";\t|" if s in header[0])
+        hint = (f"; the header has one column, {_quote(header[0])}: linfer reads "
+                f"comma-separated values, and this file seems to separate them by {sep!r}")
+    errors = []
+    if options["response_column"] not in position:
+        errors.append(FieldError("/response_column", f"{options['response_column']!r} names "
+                                 f"no column of the CSV header (columns: {columns}){hint}"))
+    for i, name in enumerate(options.get("predictor_columns", [])):
+        if name not in position:
+            errors.append(FieldError(pointer("predictor_columns", i), f"{name!r} names no "
+                                     f"column of the CSV header (columns: {columns})"))
+    weights = options.get("weights")
+    if weights is not None and weights not in position:
+        errors.append(FieldError("/weights", f"{weights!r} names no column of the CSV header "
+                                 f"(columns: {columns})"))
+    if errors:
+        raise invalid(errors)
+    if "predictor_columns" not in options:
+        return list(range(len(header)))
+    wanted = {options["response_column"], *options["predictor_columns"]}
+    if weights is not None:
+        wanted.add(weights)
+    return [j for j, name in enumerate(header) if name in wanted]
+
+
+def _as_json_list(values: np.ndarray) -> list[float | None]:
+    out = values.tolist()
+    if np.isnan(values).any():
+        out = [None if v != v else v for v in out]
+    return out
+
+
+def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
+    """A /v1/fit body in the ``table`` layout from a CSV upload and its query parameters.
+
+    Parameters
+    ----------
+    raw : bytes
+        The request body: UTF-8 CSV with a header row (reading rules in the module
+        docstring).
+    query : mapping of str to str or list of str
+        The query parameters, e.g. ``request.args`` (a MultiDict: every value of a
+        repeated parameter is seen) or ``{"response_column": "kwh", "levels": "0.9,0.95"}``.
+        ``response_column`` is required. Options: ``predictor_columns``, ``levels``,
+        ``include`` (comma-separated, or the parameter repeated), ``weights`` (a column
+        name), ``intercept`` and ``return_model`` (``true`` or ``false``),
+        ``missing``, ``rank_deficiency``, ``covariance``, ``simultaneous`` (a word;
+        ``none`` for null). Their values are checked by the /v1/fit schema as usual.
+
+    Returns
+    -------
+    dict
+        ``{"table": {column: [float | None, ...]}, "response_column": ..., <options>}``,
+        the columns in the header's order. When ``predictor_columns`` is given, only
+        the response, the predictors and the weights column are in ``table``.
+
+    Raises
+    ------
+    ApiProblem
+        400 ``malformed_csv``: empty body, not UTF-8, broken quoting, a row with more
+        or fewer fields than the header. 422 ``invalid_request``: an unknown or
+        ill-formed query parameter (pointer ``""`` for an unknown one, else the
+        field's pointer, e.g. ``/levels/1``), a header name that is empty or repeated,
+        a name in the query that the header lacks, a cell that is not a number
+        (pointer ``/table/<column>/<row>``; the message names the row, the CSV line
+        and the column). Up to 10 cells are pointed at; ``detail`` counts them all.
+    """
+    options = _options(query)
+    text = _decode(raw)
+    header, header_line = _header(text)
+    used = _used_columns(header, options)
+    body = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw
+    values = _fast(body, len(header))
+    if values is not None and np.isnan(values).any() \
+            and not _structure_agrees(text, len(header), values.shape[0]):
+        values = None
+    if values is not None:
+        n, columns = values.shape[0], [values[:, j] for j in used]
+    else:
+        n, columns = _careful(text, header, used)
+    if n == 0:
+        raise invalid([FieldError("/table", f"the CSV has a header row (line {header_line}) "
+                                  "but no data rows")])
+    return {"table": {header[j]: _as_json_list(c) for j, c in zip(used, columns)}, **options}
+
+
+# --- writing the coefficient table ---------------------------------------------------------
+
+def _cell(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return repr(value) if math.isfinite(value) else ""
+    return str(value)
+
+
+def coefficients_csv(document: Mapping[str, Any]) -> str:
+    """The coefficient table of a /v1/fit JSON document as CSV text.
+
+    One row per coefficient, in the document's order, under the header
+    ``name,estimable,estimate,standard_error,t_statistic,p_value``, then
+    ``lower_L,upper_L`` per confidence level L in the order of the intervals (e.g.
+    ``lower_0.95,upper_0.95``), then ``vif``. ``null`` is an empty cell; numbers are
+    written with ``repr`` (the shortest text that reads back to the same double, at
+    most 17 significant digits); ``estimable`` is ``true`` or ``false``. Lines end
+    with CRLF (RFC 4180); names holding commas or quotes are quoted.
+    """
+    coefficients = document["coefficients"]
+    levels: list[float] = []
+    for c in coefficients:
+        for iv in c.get("intervals") or []:
+            if iv["level"] not in levels:
+                levels.append(iv["level"])
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\r\n")
+    writer.writerow(["name", "estimable", "estimate", "standard_error", "t_statistic",
+                     "p_value", *[f"{side}_{_cell(float(lv))}" for lv in levels
+                                  for side in ("lower", "upper")], "vif"])
+    for c in coefficients:
+        by_level = {iv["level"]: iv for iv in c.get("intervals") or []}
+        bounds = []
+        for lv in levels:
+            iv = by_level.get(lv, {})
+            bounds += [_cell(iv.get("lower")), _cell(iv.get("upper"))]
+        writer.writerow([c["name"], _cell(c.get("estimable")), _cell(c.get("estimate")),
+                         _cell(c.get("standard_error")), _cell(c.get("t_statistic")),
+                         _cell(c.get("p_value")), *bounds, _cell(c.get("vif"))])
+    return out.getvalue()
