@@ -8,7 +8,7 @@ import orjson
 from flask import Blueprint, Flask, Response, current_app, request
 
 from ..settings import Settings
-from ..stats.design import Design
+from ..stats.design import INTERCEPT, Design
 from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit
 from ..stats.hypotheses import HypothesisError, test_hypotheses
 from ..stats.lstsq import RankDeficient
@@ -135,12 +135,14 @@ def predict_endpoint() -> Response:
         notices.append({"code": "no_residual_df", "message": "The model has no residual "
                         "degrees of freedom: standard errors and intervals are undefined.",
                         "pointer": None})
+    first = next((n for n in model.names if not (model.intercept and n == INTERCEPT)), None)
     for i, p in enumerate(predictions):
         if not p.estimable:
             notices.append({"code": "not_estimable", "message": (
                 f"New row {i} breaks the relation of an aliased column: the data do not "
-                "determine its mean, which is null."), "pointer": pointer(
-                    "new_rows" if "new_rows" in data else "new_table", i)})
+                "determine its mean, which is null."), "pointer": (
+                    pointer("new_rows", i) if "new_rows" in data
+                    else pointer("new_table", first, i))})
     return json_response({
         "kind": data["kind"],
         "covariance_kind": model.covariance_kind,

@@ -306,6 +306,10 @@ def flatten_errors(messages: Any, prefix: tuple[str | int, ...] = ()) -> list[Fi
                 text = str(m)
                 if text == "Unknown field.":
                     text = "is not a field of this request"
+                elif text == "Missing data for required field." and prefix:
+                    # An absent member cannot be pointed at: point at its parent.
+                    out.append(FieldError(pointer(*prefix[:-1]), f"{prefix[-1]} is required"))
+                    continue
                 out.append(FieldError(pointer(*prefix), text))
     else:
         out.append(FieldError(pointer(*prefix), str(messages)))
