@@ -11,6 +11,7 @@ from typing import Mapping
 
 from flask import Flask, Response, g, request
 
+from . import observability, security
 from . import settings as settings_module
 from .api import problems, routes
 from .settings import Settings
@@ -43,6 +44,8 @@ def create_app(settings: Settings | Mapping[str, object] | None = None) -> Flask
     app.config["MAX_CONTENT_LENGTH"] = resolved.max_body_bytes
     app.before_request(_request_id)
     app.after_request(_tag)
+    observability.init_app(app)
+    security.init_app(app)
     problems.init_app(app)
     routes.init_app(app)
     return app

@@ -13,6 +13,20 @@ import os
 for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_name, "1")
 
+# prometheus_client's multiprocess mode: every worker writes its metrics here and
+# GET /metrics merges them. A fresh directory per server start.
+if not os.environ.get("PROMETHEUS_MULTIPROC_DIR"):
+    import tempfile
+
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = tempfile.mkdtemp(prefix="linfer-metrics-")
+
+
+def child_exit(server, worker):
+    from prometheus_client import multiprocess
+
+    multiprocess.mark_process_dead(worker.pid)
+
+
 bind = os.environ.get("LINFER_BIND", "127.0.0.1:8000")
 workers = int(os.environ.get("LINFER_WORKERS", "0")) or multiprocessing.cpu_count()
 worker_class = "sync"

@@ -45,7 +45,22 @@ class Settings:
     extended_below_digits
         The double-precision answer is recomputed in extended precision when
         its estimated correct digits fall below this (LINFER_EXTENDED_BELOW_DIGITS).
+    api_tokens
+        Comma-separated bearer tokens (LINFER_API_TOKENS). When set, every /v1
+        endpoint needs ``Authorization: Bearer <token>``; empty: no authentication.
+    cors_origins
+        Comma-separated origins allowed to call the API from a browser
+        (LINFER_CORS_ORIGINS), or ``*``; empty: no CORS headers (off).
     """
+
+    @property
+    def token_list(self) -> tuple[str, ...]:
+        return tuple(t.strip() for t in self.api_tokens.split(",") if t.strip())
+
+    @property
+    def origin_list(self) -> tuple[str, ...]:
+        return tuple(o.strip() for o in self.cors_origins.split(",") if o.strip())
+
 
     max_body_bytes: int = 64 * 1024 * 1024
     max_rows: int = 1_000_000
@@ -55,6 +70,8 @@ class Settings:
     max_hypotheses: int = 50
     extended_max_work: int = 200_000
     extended_below_digits: float = 13.5
+    api_tokens: str = ""
+    cors_origins: str = ""
 
     def overlay(self, values: Mapping[str, object]) -> "Settings":
         """Return a copy with the given fields replaced (used by tests and the factory)."""
@@ -78,6 +95,9 @@ def load(environ: Mapping[str, str] | None = None) -> Settings:
         if raw is None or raw == "":
             continue
         kind = type(getattr(base, f.name))
+        if kind is str:
+            values[f.name] = raw
+            continue
         try:
             value = kind(raw)
         except ValueError:

@@ -72,6 +72,7 @@ _NUMBER = re.compile(r"[ \t]*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+
 # Bytes that cells of plain numbers are made of; data holding only these take the
 # fast path (pandas would read "true" as 1.0 and "inf" as infinity: they hold others).
 _NUMERIC_BYTES = b"0123456789+-.eE \t,\r\n\""
+_BOM = b"\xef\xbb\xbf"
 _MISSING_MARKERS = {"na", "n/a", "#n/a", "nan", "null", "none", "-", ".", "?"}
 _QUOTED_MAX = 40
 
@@ -158,18 +159,21 @@ def _options(query: Mapping[str, Any]) -> dict[str, Any]:
 
 # --- reading the table -------------------------------------------------------------------
 
-def _decode(raw: bytes) -> str:
+def _decode(raw: bytes) -> tuple[bytes, str]:
+    """The body without a byte order mark, and its text; 400 when not UTF-8 or empty."""
+    skipped = len(_BOM) if raw.startswith(_BOM) else 0
+    body = raw[skipped:]
     try:
-        text = raw.decode("utf-8-sig")
+        text = body.decode("utf-8")
     except UnicodeDecodeError as err:
-        line = raw.count(b"\n", 0, err.start) + 1
-        raise _malformed(f"the body is not UTF-8 text: byte 0x{raw[err.start]:02x} at offset "
-                         f"{err.start} (line {line}) cannot be decoded; save the file as "
-                         "CSV UTF-8") from None
+        line = body.count(b"\n", 0, err.start) + 1
+        raise _malformed(f"the body is not UTF-8 text: byte 0x{body[err.start]:02x} at offset "
+                         f"{err.start + skipped} (line {line}) cannot be decoded; save the "
+                         "file as CSV UTF-8") from None
     if not text.strip():
         raise _malformed("the CSV body is empty: send a header row naming the columns, then "
                          "one row per observation")
-    return text
+    return body, text
 
 
 def _blank(record: list[str]) -> bool:
@@ -387,10 +391,9 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
         and the column). Up to 10 cells are pointed at; ``detail`` counts them all.
     """
     options = _options(query)
-    text = _decode(raw)
+    body, text = _decode(raw)
     header, header_line = _header(text)
     used = _used_columns(header, options)
-    body = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw
     values = _fast(body, len(header))
     if values is not None and np.isnan(values).any() \
             and not _structure_agrees(text, len(header), values.shape[0]):

@@ -70,13 +70,15 @@ def decode_model(m: dict[str, Any], strict: bool) -> ModelSummary:
     if np.all(missing):
         raise _fail(("estimates",), "holds no estimate")
     expected = missing[:, None] | missing[None, :]
+    if m["residual_df"] == 0 and np.all(np.isnan(cov)):
+        expected = np.ones_like(expected)  # no residual df: no covariance at all
     wrong = np.argwhere(np.isnan(cov) != expected)
     if wrong.size:
         i, j = map(int, wrong[0])
         raise _fail(("covariance", i, j), "must be null exactly where the row's or the "
                     "column's estimate is null")
     est = ~missing
-    v = cov[np.ix_(est, est)]
+    v = np.nan_to_num(cov[np.ix_(est, est)])
     scale = float(np.max(np.abs(v))) if v.size else 0.0
     asym = np.abs(v - v.T)
     if scale > 0 and np.max(asym) > SYMMETRY_TOLERANCE * scale:

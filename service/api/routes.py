@@ -7,6 +7,7 @@ from pathlib import Path
 import orjson
 from flask import Blueprint, Flask, Response, current_app, request
 
+from ..observability import record_shape
 from ..settings import Settings
 from ..stats.design import INTERCEPT, Design
 from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit
@@ -59,6 +60,7 @@ def _json_body() -> tuple[object, int]:
 
 def _run_fit(design: Design, options: FitOptions, pointers: dict[str, str]) -> FitResult:
     """Fit, turning the core's refusals into problems that point into the request."""
+    record_shape(*design.matrix.shape)
     try:
         return fit(design, options)
     except TooFewObservations as err:

@@ -78,10 +78,14 @@ def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool) -> tuple[float
 def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray | None,
                     intercept: bool) -> ResidualChecks:
     """The residual summary and the tests of the module docstring."""
-    e = _weighted(solution, weights)
-    n = e.shape[0]
+    raw = _weighted(solution, weights)
+    n = raw.shape[0]
     probs = (0.0, 0.25, 0.5, 0.75, 1.0)
-    quantiles = tuple((p, float(q)) for p, q in zip(probs, np.quantile(e, probs)))
+    quantiles = tuple((p, float(q)) for p, q in zip(probs, np.quantile(raw, probs)))
+    # Every statistic below is scale-free: work on e / max|e| so that fourth powers of
+    # residuals near 1e100 neither overflow nor underflow.
+    top = float(np.max(np.abs(raw))) if n else 0.0
+    e = raw / top if top > 0 else raw
     d = e - e.mean()
     m2 = float(d @ d) / n
     with np.errstate(divide="ignore", invalid="ignore"):

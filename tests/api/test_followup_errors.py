@@ -319,3 +319,84 @@ def test_hypothesis_on_aliased_coefficient_is_refused(client, aliased_model):
         {"coefficients": {"x1": 1}}, {"coefficients": {"x3": 1}}]}]}
     check(post(client, "/v1/test", body), body, "/hypotheses/0/restrictions/1/coefficients/x3",
           "aliased")
+
+
+def test_new_weights_length_mismatch(client, model):
+    body = {"model": model, "new_rows": [[1.0, 2.0]], "kind": "observation",
+            "new_weights": [1.0, 2.0]}
+    check(post(client, "/v1/predict", body), body, "/new_weights", "2")
+
+
+# --------------------------------------- the service accepts its own model summaries
+
+N = 12
+_LEVERAGE_ONE = {  # x2 is an indicator of row 0: that row has leverage 1
+    "design_matrix": [[0.1 * i * i - i, 1.0 if i == 0 else 0.0] for i in range(N)],
+    "response": [1.0 + 0.3 * i + (0.5 if i % 3 else -0.7) for i in range(N)],
+}
+OWN_MODELS = {
+    "no-residual-df": {"design_matrix": [[1.0], [2.0]], "response": [1.0, 3.0]},
+    "no-residual-df-hc3": {"design_matrix": [[1.0], [2.0]], "response": [1.0, 3.0],
+                           "covariance": "hc3"},
+    "leverage-one-hc2": {**_LEVERAGE_ONE, "covariance": "hc2"},
+    "leverage-one-hc3": {**_LEVERAGE_ONE, "covariance": "hc3"},
+    "perfect-fit": {"design_matrix": [[1.0], [2.0], [3.0], [4.0]],
+                    "response": [3.0, 5.0, 7.0, 9.0]},
+    "aliased-hc3": {**ALIASED, "covariance": "hc3"},
+}
+
+
+@pytest.mark.parametrize("name", list(OWN_MODELS))
+def test_every_returned_model_is_accepted_back(client, name):
+    """A model /v1/fit returns with return_model must be a valid /v1/predict and /v1/test input."""
+    fitted = post(client, "/v1/fit", {**OWN_MODELS[name], "return_model": True})
+    assert fitted.status_code == 200, fitted.get_data(as_text=True)
+    model = fitted.get_json()["model"]
+    width = len(model["names"]) - int(model["intercept"])
+    predictors = [n for n in model["names"] if n != "intercept" or not model["intercept"]]
+    row = [1.0] * width
+    if name.startswith("aliased"):
+        row = [1.0, 1.0, 3.0]  # respects x3 = 2 x1 + x2
+    resp = post(client, "/v1/predict", {"model": model, "new_rows": [row]})
+    assert resp.status_code == 200, (name, resp.get_json())
+    b = [v for v in model["estimates"]]
+    x0 = ([1.0] if model["intercept"] else []) + row
+    expected = sum(bi * xi for bi, xi in zip(b, x0) if bi is not None)
+    assert resp.get_json()["predictions"][0]["mean"] == pytest.approx(expected, rel=1e-12)
+    resp = post(client, "/v1/test", {"model": model, "hypotheses": [
+        {"restrictions": [{"coefficients": {predictors[0]: 1.0}, "equals": 0.0}]}]})
+    assert resp.status_code == 200, (name, resp.get_json())
+
+
+NULL_FIGURES = {
+    "leverage-one-hc3": {**_LEVERAGE_ONE, "covariance": "hc3"},
+    "leverage-one-hc2": {**_LEVERAGE_ONE, "covariance": "hc2"},
+    "leverage-one-influence": {**_LEVERAGE_ONE, "include": ["influence"]},
+}
+
+
+def _nulls(doc):
+    out = [c["name"] for c in doc["coefficients"] if c["estimable"] and (
+        c["standard_error"] is None or c["p_value"] is None)]
+    for measure, values in (doc.get("rows") or {}).items():
+        out += [f"rows/{measure}/{i}" for i, v in enumerate(values) if v is None]
+    return out
+
+
+@pytest.mark.parametrize("name", list(NULL_FIGURES))
+def test_null_figures_come_with_a_warning(client, name):
+    """Wire contract: an undefined figure is null, and a warning says why."""
+    resp = post(client, "/v1/fit", NULL_FIGURES[name])
+    assert resp.status_code == 200
+    doc = resp.get_json()
+    nulls = _nulls(doc)
+    assert nulls, "the case is meant to produce undefined figures"
+    assert doc["warnings"], f"null figures {nulls[:5]} without any warning"
+
+
+def test_overflowed_prediction_comes_with_a_warning(client, model):
+    resp = post(client, "/v1/predict", {"model": model, "new_rows": [[1e308, 1e308]]})
+    assert resp.status_code == 200
+    doc = resp.get_json()
+    assert doc["predictions"][0]["standard_error"] is None
+    assert doc["warnings"], "a null standard error without any warning"

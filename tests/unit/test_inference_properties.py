@@ -24,7 +24,7 @@ import json
 import math
 
 import numpy as np
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from service.app import create_app
@@ -143,6 +143,83 @@ def test_reordering_the_predictors_leaves_t_p_and_f_alone(shape, order, covarian
         assert close(ha["p_value"], hb["p_value"], RTOL_P, 1e-300), (ha, hb)
     assert close(a["residual_checks"]["breusch_pagan"]["statistic"],
                  b["residual_checks"]["breusch_pagan"]["statistic"], 1e-8, 1e-12)
+
+
+@PROPERTY
+@given(shape=shapes.filter(lambda s: s[2] >= 2), up=st.integers(0, 6), down=st.integers(0, 6),
+       covariance=st.sampled_from(["classical", "hc3"]))
+@example(shape=(1, 20, 2), up=6, down=6, covariance="classical")
+@example(shape=(1, 20, 2), up=6, down=5, covariance="hc3")
+def test_rescaling_two_predictors_leaves_joint_tests_alone(shape, up, down, covariance):
+    """Two predictors rescaled in opposite directions (each by at most 1e6): a set that ties
+    them in one restriction is the same hypothesis, so it gets the same F."""
+    seed, n, k = shape
+    x, y, names = make_data(seed, n, k)
+    a, b = names[0], names[1]
+    ca, cb = 10.0 ** up, 10.0 ** -down
+    x2 = x.copy()
+    x2[:, 0] *= ca
+    x2[:, 1] *= cb
+
+    def hyps(ma, mb):
+        # beta_a = 0 and beta_a = beta_b (that is, both are zero): in the original units a
+        # well-conditioned set; in the rescaled ones its second row is (ma, -mb) with
+        # mb / ma as small as 1e-12, which must not make it look like a repeat of the first.
+        return [{"label": "tied", "restrictions": [
+                    {"coefficients": {a: ma}, "equals": 0.0},
+                    {"coefficients": {a: ma, b: -mb}, "equals": 0.0}]},
+                {"label": "tied, other order", "restrictions": [
+                    {"coefficients": {a: ma, b: mb}, "equals": 0.0},
+                    {"coefficients": {b: mb}, "equals": 0.0}]}]
+
+    one = post("/v1/fit", body_for(x, y, names, covariance=covariance, hypotheses=hyps(1.0, 1.0)))
+    resp = CLIENT.post("/v1/fit", data=json.dumps(body_for(
+        x2, y, names, covariance=covariance, hypotheses=hyps(ca, cb))),
+        content_type="application/json")
+    assert resp.status_code == 200, resp.get_json()
+    two = resp.get_json()
+    for ha, hb in zip(one["hypotheses"], two["hypotheses"]):
+        assert close(ha["statistic"], hb["statistic"], RTOL_T), (ha, hb)
+        assert close(ha["p_value"], hb["p_value"], RTOL_P, 1e-300), (ha, hb)
+
+
+@FEW
+@given(shape=shapes, exponent=st.integers(-120, 120), covariance=covariances)
+@example(shape=(3, 20, 2), exponent=100, covariance="classical")
+@example(shape=(3, 20, 2), exponent=-100, covariance="classical")
+def test_rescaling_the_response_leaves_t_p_f_and_residual_checks_alone(shape, exponent,
+                                                                       covariance):
+    """y times 10^e: estimates and residuals scale, every test statistic and the scale-free
+    residual checks (skewness, kurtosis, Durbin-Watson, Jarque-Bera, Breusch-Pagan) do not.
+    The solver equilibrates y by a power of two, so this holds far beyond 1e+-77."""
+    seed, n, k = shape
+    x, y, names = make_data(seed, n, k)
+    c = 10.0 ** exponent
+    hyps = _hypotheses(names)
+    scaled = json.loads(json.dumps(hyps))  # beta scales with y, and so must q
+    for h in scaled:
+        for r in h["restrictions"]:
+            r["equals"] *= c
+    a = post("/v1/fit", body_for(x, y, names, covariance=covariance, hypotheses=hyps))
+    resp = CLIENT.post("/v1/fit", data=json.dumps(body_for(
+        x, y * c, names, covariance=covariance, hypotheses=scaled)),
+        content_type="application/json")
+    assert resp.status_code == 200, resp.get_json()
+    b = resp.get_json()
+    for ca, cb in zip(a["coefficients"], b["coefficients"]):
+        assert close(ca["t_statistic"], cb["t_statistic"], RTOL_T), (ca, cb)
+        assert close(ca["p_value"], cb["p_value"], RTOL_P, 1e-300)
+        assert close(ca["estimate"] * c, cb["estimate"], 1e-9, 1e-9 * c * ca["standard_error"])
+    for ha, hb in zip(a["hypotheses"], b["hypotheses"]):
+        assert close(ha["statistic"], hb["statistic"], RTOL_T), (ha, hb)
+    ra, rb = a["residual_checks"], b["residual_checks"]
+    for key in ("skewness", "kurtosis", "durbin_watson"):
+        assert close(ra[key], rb[key], 1e-8, 1e-10), (key, ra[key], rb[key])
+    for test in ("jarque_bera", "breusch_pagan"):
+        assert close(ra[test]["statistic"], rb[test]["statistic"], 1e-8, 1e-10), test
+        assert close(ra[test]["p_value"], rb[test]["p_value"], 1e-6, 1e-12), test
+    for qa, qb in zip(ra["quantiles"], rb["quantiles"]):
+        assert close(qa["value"] * c, qb["value"], 1e-8, 1e-8 * c * abs(ra["quantiles"][0]["value"]))
 
 
 # ------------------------------------------------------------------ F versus t, RSS
