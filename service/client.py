@@ -186,8 +186,14 @@ class FitStatistics:
 
     @classmethod
     def from_json(cls, d: Mapping[str, Any]) -> FitStatistics:
-        return cls(**{f: (d.get(f) if f == "centered" else _num(d.get(f)))
-                      for f in cls.__dataclass_fields__})
+        return cls(r_squared=_num(d.get("r_squared")),
+                   adjusted_r_squared=_num(d.get("adjusted_r_squared")),
+                   residual_standard_deviation=_num(d.get("residual_standard_deviation")),
+                   residual_sum_of_squares=_num(d.get("residual_sum_of_squares")),
+                   regression_sum_of_squares=_num(d.get("regression_sum_of_squares")),
+                   total_sum_of_squares=_num(d.get("total_sum_of_squares")),
+                   log_likelihood=_num(d.get("log_likelihood")), aic=_num(d.get("aic")),
+                   bic=_num(d.get("bic")), centered=d.get("centered"))
 
 
 @dataclass(frozen=True)
@@ -645,7 +651,7 @@ class Client:
                                  method=method, url=url) from reason
 
     def _delay(self, attempt: int, headers: Any) -> float:
-        delay = self.backoff * 2 ** attempt
+        delay = float(self.backoff * 2.0 ** attempt)
         retry_after = headers.get("Retry-After") if headers is not None else None
         if retry_after:
             try:

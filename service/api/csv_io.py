@@ -39,7 +39,7 @@ import io
 import math
 import re
 from array import array
-from typing import Any, Mapping, Sequence
+from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -181,7 +181,7 @@ def _blank(record: list[str]) -> bool:
     return not record or (len(record) == 1 and not record[0].strip(" \t"))
 
 
-def _records(text: str):
+def _records(text: str) -> Iterator[tuple[int, list[str]]]:
     """(first line, fields) of every non-blank record; 400 on broken quoting."""
     reader = csv.reader(io.StringIO(text, newline=""))
     line = 0
@@ -349,7 +349,7 @@ def _used_columns(header: list[str], options: dict[str, Any]) -> list[int]:
 
 
 def _as_json_list(values: np.ndarray) -> list[float | None]:
-    out = values.tolist()
+    out: list[float | None] = values.tolist()
     if np.isnan(values).any():
         out = [None if v != v else v for v in out]
     return out

@@ -70,8 +70,10 @@ def decode_model(m: dict[str, Any], strict: bool) -> ModelSummary:
     if np.all(missing):
         raise _fail(("estimates",), "holds no estimate")
     expected = missing[:, None] | missing[None, :]
-    if m["residual_df"] == 0 and np.all(np.isnan(cov)):
-        expected = np.ones_like(expected)  # no residual df: no covariance at all
+    if np.all(np.isnan(cov)):
+        # The service writes an all-null covariance when it is undefined (no residual
+        # df, or a robust estimator undefined at a row of leverage 1).
+        expected = np.ones_like(expected)
     wrong = np.argwhere(np.isnan(cov) != expected)
     if wrong.size:
         i, j = map(int, wrong[0])

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
+
+import numpy as np
 
 import orjson
 from flask import Blueprint, Flask, Response, current_app, request
@@ -137,8 +140,23 @@ def predict_endpoint() -> Response:
         notices.append({"code": "no_residual_df", "message": "The model has no residual "
                         "degrees of freedom: standard errors and intervals are undefined.",
                         "pointer": None})
+    elif not np.all(np.isfinite(model.covariance[np.ix_(model.estimable, model.estimable)])):
+        notices.append({"code": "covariance_undefined", "message": "The model's covariance "
+                        "is undefined (null), so standard errors and intervals are null; "
+                        "refit with another covariance kind.", "pointer": "/model/covariance"})
     first = next((n for n in model.names if not (model.intercept and n == INTERCEPT)), None)
     for i, p in enumerate(predictions):
+        if p.estimable and not all(math.isfinite(v) for v in
+                                   (p.mean, p.standard_error,
+                                    *(x for iv in p.intervals for x in (iv.lower, iv.upper)))):
+            if model.residual_df > 0 and math.isfinite(model.residual_variance) and \
+                    np.all(np.isfinite(model.covariance[np.ix_(model.estimable,
+                                                               model.estimable)])):
+                notices.append({"code": "overflow", "message": (
+                    f"New row {i}: a figure exceeds the range of double precision and is "
+                    "null; rescale the predictors."), "pointer": (
+                        pointer("new_rows", i) if "new_rows" in data
+                        else pointer("new_table", first, i))})
         if not p.estimable:
             notices.append({"code": "not_estimable", "message": (
                 f"New row {i} breaks the relation of an aliased column: the data do not "

@@ -100,6 +100,29 @@ def _column_spread(design: Design) -> np.ndarray | None:
     return spread
 
 
+def _leverage_notices(design: Design, solution: LeastSquares,
+                      options: FitOptions) -> list[Notice]:
+    if solution.projection is None:
+        return []
+    at_one = np.flatnonzero(solution.projection.leverages >= 1.0 - 1e-12)
+    if at_one.size == 0:
+        return []
+    rows = ", ".join(str(int(design.rows_used[i])) for i in at_one[:10])
+    more = "" if at_one.size <= 10 else f" and {at_one.size - 10} more"
+    out = []
+    if options.covariance in ("hc2", "hc3"):
+        out.append(Notice("robust_covariance_undefined", (
+            f"Row(s) {rows}{more} have leverage 1: the fit passes through them exactly, and "
+            f"{options.covariance} divides by 1 - leverage, so it is undefined; standard "
+            "errors, tests and intervals are null. Use hc0 or hc1, or remove the column that "
+            "singles those rows out.")))
+    if options.include_influence:
+        out.append(Notice("leverage_one", (
+            f"Row(s) {rows}{more} have leverage 1: their studentized residuals and Cook's "
+            "distances are undefined (null).")))
+    return out
+
+
 def _notices(design: Design, result: Inference, cond: Conditioning,
              solution: LeastSquares) -> list[Notice]:
     out: list[Notice] = []
@@ -201,7 +224,8 @@ def fit(design: Design, options: FitOptions) -> FitResult:
     sigma = result.fit.residual_standard_deviation
     return FitResult(
         design=design, solution=solution, inference=result, conditioning=cond,
-        numerics=numerics, notices=tuple(_notices(design, result, cond, solution)),
+        numerics=numerics, notices=tuple(_notices(design, result, cond, solution)
+                                         + _leverage_notices(design, solution, options)),
         model=model, hypotheses=tuple(tests),
         residual_checks=check_residuals(solution, design.matrix, design.weights,
                                         design.intercept),

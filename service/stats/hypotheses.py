@@ -113,10 +113,17 @@ def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
         An unknown or aliased coefficient, an empty restriction, or restrictions
         that repeat or contradict one another.
     """
+    # Dependence among restrictions is judged in standard-error units, so that the
+    # verdict does not change with the units of the predictors.
+    with np.errstate(invalid="ignore"):
+        unit = np.sqrt(np.abs(np.diag(model.covariance)))
+    unit = np.where(np.isfinite(unit) & (unit > 0), unit, 1.0)
     prepared = []
     for index, h in enumerate(hypotheses):
         rmat, q = _matrix(model, h, index)
-        _check_independent(rmat, q, index)
+        scaled = rmat * unit[None, :]
+        size = np.max(np.abs(scaled), axis=1, keepdims=True)
+        _check_independent(scaled / size, q / size[:, 0], index)
         prepared.append((h, rmat, q))
     estimable = model.estimable
     b = model.estimates[estimable]

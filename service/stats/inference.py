@@ -222,7 +222,7 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
     fit = FitStatistics(
         r_squared=r2, adjusted_r_squared=adj, residual_standard_deviation=sigma,
         residual_sum_of_squares=rss, regression_sum_of_squares=gn * gn,
-        total_sum_of_squares=solution.total_norm ** 2, log_likelihood=log_lik,
+        total_sum_of_squares=solution.total_norm * solution.total_norm, log_likelihood=log_lik,
         aic=aic, bic=bic, centered=centered)
     return Inference(
         n_observations=n, n_parameters=p, residual_df=df,

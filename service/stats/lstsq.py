@@ -294,8 +294,9 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
         # |A db|: from the bound on b, or from the backward error directly.
         move = min(sigma_max * b_norm * err_b,
                    EPS * math.sqrt(k) * (sigma_max * b_norm + y_norm + kappa * r_norm))
+        relative_move = move / r_norm
         err_sigma = (float(np.finfo(np.longdouble).eps) * y_norm / r_norm
-                     + 0.5 * (move / r_norm) ** 2)
+                     + 0.5 * relative_move * relative_move)
     else:
         err_sigma = 1.0 if y_norm > 0 else 0.0
     worst = max(err_b, err_se, err_sigma, EPS / 2)

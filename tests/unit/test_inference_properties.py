@@ -385,3 +385,21 @@ def test_predict_from_model_equals_predict_from_data(shape, covariance, kind, we
         if covariance == "classical":
             assert close(a["restricted_residual_sum_of_squares"],
                          b["restricted_residual_sum_of_squares"], 1e-12)
+
+
+def test_responses_near_1e200_are_answered():
+    """README/DESIGN: norms, not sums of squares, so a response near 1e200 (or 1e-200)
+    neither overflows nor underflows; t statistics and residual checks are scale-free."""
+    x, y, names = make_data(11, 25, 2)
+    base = post("/v1/fit", body_for(x, y, names))
+    for exponent in (160, 200, -160, -200):
+        c = 10.0 ** exponent
+        resp = CLIENT.post("/v1/fit", data=json.dumps(body_for(x, y * c, names)),
+                           content_type="application/json")
+        assert resp.status_code == 200, (exponent, resp.get_json())
+        doc = resp.get_json()
+        for ca, cb in zip(base["coefficients"], doc["coefficients"]):
+            assert close(ca["t_statistic"], cb["t_statistic"], RTOL_T), (exponent, ca, cb)
+        assert close(base["fit"]["r_squared"], doc["fit"]["r_squared"], 1e-10), exponent
+        for key in ("skewness", "kurtosis", "durbin_watson"):
+            assert close(base["residual_checks"][key], doc["residual_checks"][key], 1e-8, 1e-10)
