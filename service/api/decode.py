@@ -17,13 +17,15 @@ from ..settings import Settings
 from ..stats.design import INTERCEPT, Design, build_design
 from ..stats.fit import FitOptions
 from ..stats.hypotheses import Hypothesis, Restriction
+from ..stats.summaries import Summary
 from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term,
                            TermError, expand_terms)
 from .arrays import MAX_POINTED, as_matrix, as_vector, invalid
 from .problems import FieldError, pointer
 from .schemas import FitRequestSchema, flatten_errors
 
-__all__ = ["FitRequest", "decode_fit", "decode_design", "fit_options", "load_request"]
+__all__ = ["FitRequest", "decode_fit", "decode_design", "decode_summary", "fit_options",
+           "load_request"]
 
 _SCHEMA = FitRequestSchema()
 
@@ -32,11 +34,12 @@ _SCHEMA = FitRequestSchema()
 class FitRequest:
     """A validated /v1/fit request. ``column_pointers`` maps design column names to pointers."""
 
-    design: Design
+    design: Design | None
     options: FitOptions
     column_pointers: dict[str, str]
     include_residuals: bool = False
     return_model: bool = False
+    summary: Summary | None = None
 
 
 def _check_limits(n: int, k: int, where: str, settings: Settings) -> None:
@@ -343,6 +346,46 @@ def load_request(schema: Schema, body: Any, boolean_literals: int) -> dict[str, 
     return data
 
 
+def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
+    """The validated summary from its loaded envelope (numbers checked by numpy)."""
+    s = data["summary"]
+    strict = data["_strict"]
+    names = s["column_names"]
+    seen: dict[str, int] = {}
+    for j, name in enumerate(names):
+        if name in seen:
+            raise invalid([FieldError(pointer("summary", "column_names", j),
+                                      f"repeats {name!r} (also at "
+                                      f"/summary/column_names/{seen[name]})")])
+        seen[name] = j
+    if INTERCEPT in seen and seen[INTERCEPT] != 0:
+        raise invalid([FieldError(pointer("summary", "column_names", seen[INTERCEPT]),
+                                  "the intercept column (a column of ones) must come first")])
+    _check_limits(s["n_observations"], len(names), "/summary", settings)
+    if data.get("covariance", "classical") != "classical":
+        raise invalid([FieldError("/covariance", "robust covariances need the rows; a "
+                                  "summary supports only classical")])
+    if data.get("include"):
+        raise invalid([FieldError("/include", "per-row output needs the rows; a summary "
+                                  "has none")])
+    fields_: dict[str, Any] = {}
+    if s["kind"] == "triangular":
+        fields_["r_factor"] = as_matrix(s["r_factor"], ("summary", "r_factor"), strict)
+        arrays = [("r_factor", fields_["r_factor"])]
+    else:
+        fields_["xtx"] = as_matrix(s["xtx"], ("summary", "xtx"), strict)
+        fields_["xty"] = as_vector(s["xty"], ("summary", "xty"), strict)
+        fields_["yty"] = s["yty"]
+        arrays = [("xtx", fields_["xtx"]), ("xty", fields_["xty"])]
+    for name, arr in arrays:
+        bad = np.argwhere(np.isnan(arr))
+        if bad.size:
+            raise invalid([FieldError(pointer("summary", name, *map(int, bad[0])),
+                                      "must be a number: a summary has no missing values")])
+    return Summary(kind=s["kind"], n_observations=s["n_observations"], names=tuple(names),
+                   intercept=bool(names) and names[0] == INTERCEPT, **fields_)
+
+
 def decode_fit(body: Any, settings: Settings, boolean_literals: int = 0) -> FitRequest:
     """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault.
 
@@ -351,8 +394,14 @@ def decode_fit(body: Any, settings: Settings, boolean_literals: int = 0) -> FitR
     """
     data = load_request(_SCHEMA, body, boolean_literals)
     options = fit_options(data, settings)
-    design, where = decode_design(data, body, settings)
     include = tuple(data.get("include", ()))
+    if "summary" in data:
+        summary = decode_summary(data, settings)
+        where = {name: pointer("summary", "column_names", j)
+                 for j, name in enumerate(summary.names)}
+        return FitRequest(design=None, options=options, column_pointers=where,
+                          return_model=data["return_model"], summary=summary)
+    design, where = decode_design(data, body, settings)
     return FitRequest(design=design, options=options, column_pointers=where,
                       include_residuals="residuals" in include or "influence" in include,
                       return_model=data["return_model"])

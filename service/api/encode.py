@@ -90,7 +90,8 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
             "aliased": [alias_entry(a, names) for a in cond.aliased],
         },
         "hypotheses": [encode_hypothesis(h) for h in result.hypotheses],
-        "residual_checks": encode_residual_checks(result.residual_checks),
+        "residual_checks": (None if result.residual_checks is None
+                            else encode_residual_checks(result.residual_checks)),
         "warnings": [{"code": n.code, "message": n.message,
                       "pointer": column_pointers.get(n.column) if n.column else None}
                      for n in result.notices],

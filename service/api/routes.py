@@ -13,11 +13,12 @@ from flask import Blueprint, Flask, Response, current_app, request
 from ..observability import record_shape
 from ..settings import Settings
 from ..stats.design import INTERCEPT, Design
-from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit
+from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit, fit_summary
 from ..stats.hypotheses import HypothesisError, test_hypotheses
 from ..stats.lstsq import RankDeficient
 from ..stats.model import ModelSummary
 from ..stats.predict import predict
+from ..stats.summaries import Summary, SummaryError
 from .arrays import invalid
 from .decode import decode_design, decode_fit, fit_options, load_request
 from .encode import (alias_entry, encode_fit, encode_hypothesis, encode_rows, intervals,
@@ -75,18 +76,37 @@ def _run_fit(design: Design, options: FitOptions, pointers: dict[str, str]) -> F
                                   "columns: the coefficients are not determined; send at "
                                   f"least {err.k + 1} rows for any inference")]) from None
     except RankDeficient as err:
-        errors = [FieldError(pointers.get(design.names[a.column], ""),
-                             alias_entry(a, design.names)["description"] + " (aliased)")
-                  for a in err.aliases]
-        raise ApiProblem(
-            422, "Rank-deficient design",
-            f"The design has rank {err.rank} for {err.n_columns} columns: "
-            + "; ".join(e.message for e in errors)
-            + ". Remove the aliased columns, or set rank_deficiency to drop_aliased to fit "
-              "the rest and report these as not estimable.",
-            "rank_deficient", errors) from None
+        raise _rank_problem(err, design.names, pointers) from None
     except HypothesisError as err:
         raise _hypothesis_problem(err) from None
+
+
+def _run_summary(summary: Summary, options: FitOptions,
+                 pointers: dict[str, str]) -> FitResult:
+    record_shape(summary.n_observations, len(summary.names))
+    try:
+        return fit_summary(summary, options)
+    except SummaryError as err:
+        raise invalid([FieldError(pointer("summary", err.field, *err.index), str(err))]) \
+            from None
+    except RankDeficient as err:
+        raise _rank_problem(err, summary.names, pointers) from None
+    except HypothesisError as err:
+        raise _hypothesis_problem(err) from None
+
+
+def _rank_problem(err: RankDeficient, names: tuple[str, ...],
+                  pointers: dict[str, str]) -> ApiProblem:
+    errors = [FieldError(pointers.get(names[a.column], ""),
+                         alias_entry(a, names)["description"] + " (aliased)")
+              for a in err.aliases]
+    return ApiProblem(
+        422, "Rank-deficient design",
+        f"The design has rank {err.rank} for {err.n_columns} columns: "
+        + "; ".join(e.message for e in errors)
+        + ". Remove the aliased columns, or set rank_deficiency to drop_aliased to fit "
+          "the rest and report these as not estimable.",
+        "rank_deficient", errors)
 
 
 def _hypothesis_problem(err: HypothesisError) -> ApiProblem:
@@ -107,7 +127,10 @@ def _request() -> tuple[Settings, object, int]:
 def fit_endpoint() -> Response:
     settings, body, booleans = _request()
     req = decode_fit(body, settings, booleans)
-    result = _run_fit(req.design, req.options, req.column_pointers)
+    if req.summary is not None:
+        result = _run_summary(req.summary, req.options, req.column_pointers)
+    else:
+        result = _run_fit(req.design, req.options, req.column_pointers)
     document = encode_fit(result, req.column_pointers)
     if req.include_residuals:
         document["rows"] = encode_rows(result)

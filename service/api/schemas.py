@@ -170,6 +170,38 @@ class ModelSchema(Schema):
     aliased = fields.List(fields.Nested(AliasSchema), load_default=list)
 
 
+class SummarySchema(Schema):
+    """A triangular or cross-products summary of the data, instead of rows."""
+
+    class Meta:
+        unknown = RAISE
+
+    kind = fields.String(required=True,
+                         validate=validate.OneOf(["triangular", "cross_products"]))
+    n_observations = Count(required=True)
+    column_names = fields.List(Name(), required=True, validate=validate.Length(min=1))
+    r_factor = fields.Raw()
+    xtx = fields.Raw()
+    xty = fields.Raw()
+    yty = Number()
+
+    @validates_schema
+    def _members(self, data: dict[str, Any], **kwargs: Any) -> None:
+        wanted = ({"r_factor"} if data.get("kind") == "triangular"
+                  else {"xtx", "xty", "yty"})
+        other = ({"xtx", "xty", "yty"} if data.get("kind") == "triangular"
+                 else {"r_factor"})
+        errors: dict[str, list[str]] = {}
+        absent = [f"{name} is required with kind {data.get('kind')}"
+                  for name in sorted(wanted) if name not in data]
+        for name in sorted(other & set(data)):
+            errors[name] = [f"does not belong to kind {data.get('kind')}"]
+        if absent:
+            errors["_schema"] = absent
+        if errors:
+            raise ValidationError(errors)
+
+
 class _Layout(Schema):
     """The data fields shared by every endpoint that can take rows."""
 
@@ -193,6 +225,7 @@ class _Layout(Schema):
                                     load_default="reject")
     covariance = fields.String(validate=validate.OneOf(COVARIANCE_KINDS),
                                load_default="classical")
+    summary = fields.Nested(SummarySchema)
 
     model_allowed = False
 
@@ -201,6 +234,17 @@ class _Layout(Schema):
         matrix = "design_matrix" in data or "response" in data
         table = "table" in data
         model = "model" in data
+        if "summary" in data:
+            clash = [name for name in ("design_matrix", "response", "table", "column_names",
+                                       "response_column", "predictor_columns", "terms",
+                                       "weights", "missing", "intercept", "model")
+                     if isinstance(original, dict) and name in original]
+            if clash:
+                raise ValidationError({name: ["does not go with summary: the summary "
+                                              "replaces the rows (its column_names say "
+                                              "whether there is an intercept)"]
+                                       for name in clash})
+            return
         if model:
             clash = [name for name in ("design_matrix", "response", "table", "column_names",
                                        "response_column", "predictor_columns", "terms", "weights",
@@ -215,8 +259,9 @@ class _Layout(Schema):
                                   field_name="table")
         if not matrix and not table:
             what = ("a model summary (model), or the data as design_matrix and response, "
-                    "or as table with response_column" if self.model_allowed else
-                    "the data as design_matrix and response, or as table with response_column")
+                    "as table with response_column, or as a summary" if self.model_allowed
+                    else "the data as design_matrix and response, as table with "
+                    "response_column, or as a summary")
             raise ValidationError(f"send {what}", field_name="_schema")
         # A missing member cannot be pointed at: its error points at the object
         # that lacks it ("" is the whole document) and names it.

@@ -16,8 +16,9 @@ from .lstsq import Alias, LeastSquares, solve
 from .model import ModelSummary
 from .notices import Notice
 from .residuals import Influence, ResidualChecks, check_residuals, influence
+from .summaries import Summary, solve_summary
 
-__all__ = ["FitOptions", "FitResult", "Numerics", "TooFewObservations", "fit",
+__all__ = ["FitOptions", "FitResult", "Numerics", "TooFewObservations", "fit", "fit_summary",
            "describe_alias", "model_summary"]
 
 FEW_DIGITS = 8.0
@@ -63,7 +64,7 @@ class FitResult:
     notices: tuple[Notice, ...]
     model: ModelSummary
     hypotheses: tuple[HypothesisResult, ...]
-    residual_checks: ResidualChecks
+    residual_checks: ResidualChecks | None
     influence: Influence | None
 
 
@@ -209,9 +210,48 @@ def fit(design: Design, options: FitOptions) -> FitResult:
                          lambda columns, exponents: design.exact.mp_columns(
                              design.rows_used, columns, exponents)))
     log_w = 0.0 if design.weights is None else math.fsum(np.log(design.weights).tolist())
+    return _complete(design, solution, options, n, _column_spread(design), log_w,
+                     rows=True)
+
+
+def fit_summary(summary: Summary, options: FitOptions) -> FitResult:
+    """Fit from a triangular or cross-products summary instead of rows.
+
+    Per-row outputs (residual checks, influence) and robust covariances need the rows
+    and are not available; the caller refuses them before this call.
+
+    Raises
+    ------
+    SummaryError, RankDeficient, HypothesisError
+    """
+    solution, spread = solve_summary(summary, drop_aliased=options.drop_aliased,
+                                     extended_max_work=options.extended_max_work,
+                                     extended_below_digits=options.extended_below_digits)
+    p = len(summary.names)
+    design = Design(matrix=np.zeros((0, p)), response=np.zeros(0), weights=None,
+                    names=summary.names, intercept=summary.intercept,
+                    rows_used=np.zeros(0, dtype=int), rows_dropped_missing=0,
+                    rows_zero_weight=0)
+    result = _complete(design, solution, options, summary.n_observations, spread, 0.0,
+                       rows=False)
+    if summary.kind == "cross_products":
+        lost = 2 * math.log10(max(solution.condition_number, 1.0))
+        note = Notice("cross_products_precision", (
+            f"Cross products square the condition number ({solution.condition_number:.3g}): "
+            f"about {lost:.1f} of the 16 digits of double precision are lost before the fit, "
+            f"leaving about {solution.estimated_correct_digits:.1f}. Send the triangular "
+            "summary (R from a QR of [X y]) to keep them."))
+        result = dataclasses.replace(result, notices=result.notices + (note,))
+    return result
+
+
+def _complete(design: Design, solution: LeastSquares, options: FitOptions, n: int,
+              spread: np.ndarray | None, log_w: float, rows: bool) -> FitResult:
+    """Inference, hypotheses, conditioning and notices for a solved problem."""
+    robust = options.covariance != "classical"
     result = infer(solution, design.names, n, centered=design.intercept,
                    levels=options.levels, log_weight_sum=log_w,
-                   column_spread=_column_spread(design), covariance=options.covariance,
+                   column_spread=spread, covariance=options.covariance,
                    simultaneous=options.simultaneous)
     model = model_summary(design, solution, result)
     tests = test_hypotheses(model, options.hypotheses,
@@ -222,15 +262,18 @@ def fit(design: Design, options: FitOptions) -> FitResult:
     numerics = Numerics(method=solution.method, working_digits=solution.working_digits,
                         estimated_correct_digits=solution.estimated_correct_digits)
     sigma = result.fit.residual_standard_deviation
+    notices = _notices(design, result, cond, solution) + _leverage_notices(
+        design, solution, options)
+    if not rows:
+        notices.append(Notice("no_rows", "The fit came from a summary: per-row figures "
+                              "(residual checks, influence) need the rows and are null."))
     return FitResult(
         design=design, solution=solution, inference=result, conditioning=cond,
-        numerics=numerics, notices=tuple(_notices(design, result, cond, solution)
-                                         + _leverage_notices(design, solution, options)),
-        model=model, hypotheses=tuple(tests),
+        numerics=numerics, notices=tuple(notices), model=model, hypotheses=tuple(tests),
         residual_checks=check_residuals(solution, design.matrix, design.weights,
-                                        design.intercept),
+                                        design.intercept) if rows else None,
         influence=influence(solution, design.weights, sigma)
-        if options.include_influence else None)
+        if options.include_influence and rows else None)
 
 
 def model_summary(design: Design, solution: LeastSquares, result: Inference) -> ModelSummary:

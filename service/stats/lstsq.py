@@ -428,7 +428,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
           centered: bool, drop_aliased: bool = False, extended_max_work: int = 200_000,
           extended_below_digits: float = 13.5, want_projection: bool = False,
           exact_columns: Callable[[list[int], np.ndarray], list[list[mpmath.mpf]]] | None = None,
-          ) -> LeastSquares:
+          rank_rows: int | None = None) -> LeastSquares:
     """Solve the weighted least-squares problem ``min sum_i w_i (y_i - x_i b)^2``.
 
     Parameters
@@ -453,6 +453,9 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         ``2**-exponents`` as mpmath numbers, exactly, for the extended-precision path;
         for columns formed from raw data (powers, products) more exactly than ``x``
         holds them. Default: the doubles of ``x``.
+    rank_rows : int or None
+        The number of observations behind ``x`` when ``x`` is a factor of the data (a
+        summary) rather than the rows; it sets the rank tolerance. Default: n.
     want_projection : bool
         Also return the :class:`Projection` (an n x rank array: ask only when robust
         covariances or per-row influence are wanted).
@@ -483,7 +486,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
 
     qr, pivots, tau = _householder(a)
     diag = np.abs(np.diag(qr[:k, :k]))
-    rank_tolerance = max(n, k) * EPS
+    rank_tolerance = max(n if rank_rows is None else rank_rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
     rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
     r_full = np.triu(qr[:k, :k])
