@@ -20,6 +20,7 @@ from ..stats.model import ModelSummary
 from ..stats.predict import predict
 from ..stats.summaries import Summary, SummaryError
 from .arrays import invalid
+from .csv_io import CSV_MEDIA_TYPE, coefficients_csv, table_body_from_csv
 from .decode import decode_design, decode_fit, fit_options, load_request
 from .encode import (alias_entry, encode_fit, encode_hypothesis, encode_rows, intervals,
                      json_response, number)
@@ -35,13 +36,8 @@ _TEST = TestRequestSchema()
 OPENAPI = Path(__file__).resolve().parents[2] / "openapi" / "linfer.yaml"
 
 
-def _json_body() -> tuple[object, int]:
-    """The parsed body, and how many boolean literals its bytes hold."""
-    mime = request.mimetype or ""
-    if mime != "application/json" and not mime.endswith("+json"):
-        raise ApiProblem(415, "Unsupported Media Type",
-                         f"send the request as application/json, not {mime or 'no type'}",
-                         "unsupported_media_type")
+def _read_body() -> bytes:
+    """The request body, refusing one over LINFER_MAX_BODY_BYTES with 413."""
     limit = current_app.config["MAX_CONTENT_LENGTH"]
     if request.content_length is not None and request.content_length > limit:
         raise ApiProblem(413, "Content Too Large", body_limit_detail(), "content_too_large")
@@ -53,8 +49,18 @@ def _json_body() -> tuple[object, int]:
         if len(raw) > limit:
             raise ApiProblem(413, "Content Too Large", body_limit_detail(),
                              "content_too_large")
-    else:
-        raw = request.get_data(cache=False)
+        return raw
+    return request.get_data(cache=False)
+
+
+def _json_body() -> tuple[object, int]:
+    """The parsed body, and how many boolean literals its bytes hold."""
+    mime = request.mimetype or ""
+    if mime != "application/json" and not mime.endswith("+json"):
+        raise ApiProblem(415, "Unsupported Media Type",
+                         f"send the request as application/json, not {mime or 'no type'}",
+                         "unsupported_media_type")
+    raw = _read_body()
     try:
         return orjson.loads(raw), raw.count(b"true") + raw.count(b"false")
     except orjson.JSONDecodeError as err:
@@ -125,7 +131,13 @@ def _request() -> tuple[Settings, object, int]:
 
 @bp.post("/v1/fit")
 def fit_endpoint() -> Response:
-    settings, body, booleans = _request()
+    if request.mimetype == CSV_MEDIA_TYPE:
+        # A spreadsheet's table: the CSV becomes the table layout, options come from
+        # the query string, and problems point into that table (/table/<column>/<row>).
+        settings = current_app.config["LINFER_SETTINGS"]
+        body, booleans = table_body_from_csv(_read_body(), request.args), 0
+    else:
+        settings, body, booleans = _request()
     req = decode_fit(body, settings, booleans)
     if req.summary is not None:
         result = _run_summary(req.summary, req.options, req.column_pointers)
@@ -136,6 +148,9 @@ def fit_endpoint() -> Response:
         document["rows"] = encode_rows(result)
     if req.return_model:
         document["model"] = encode_model(result.model)
+    wanted = request.accept_mimetypes.best_match(["application/json", CSV_MEDIA_TYPE])
+    if wanted == CSV_MEDIA_TYPE:
+        return Response(coefficients_csv(document), mimetype=CSV_MEDIA_TYPE)
     return json_response(document)
 
 

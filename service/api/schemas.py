@@ -259,9 +259,10 @@ class _Layout(Schema):
                                   field_name="table")
         if not matrix and not table:
             what = ("a model summary (model), or the data as design_matrix and response, "
-                    "as table with response_column, or as a summary" if self.model_allowed
-                    else "the data as design_matrix and response, as table with "
-                    "response_column, or as a summary")
+                    "or as table with response_column, or a summary of them"
+                    if self.model_allowed else
+                    "the data as design_matrix and response, or as table with "
+                    "response_column, or a summary of them")
             raise ValidationError(f"send {what}", field_name="_schema")
         # A missing member cannot be pointed at: its error points at the object
         # that lacks it ("" is the whole document) and names it.

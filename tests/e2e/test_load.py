@@ -170,10 +170,10 @@ def matrix_body(n: int, k: int, seed: int, **options: Any) -> bytes:
 
 THREADS = 32
 WARMUP_SECONDS, WARMUP_CALLS = 4.0, 800
-# Bounded in count too: ~2000 calls a worker stays under gunicorn's max_requests (5000),
+# Bounded in count too: ~3000 calls a worker stays under gunicorn's max_requests (5000),
 # so the same worker processes are measured before and after (recycling under load is
 # tested in test_faults.py).
-BURST_SECONDS, BURST_CALLS = 15.0, 4000
+BURST_SECONDS, BURST_CALLS = 15.0, 5000
 # Resident memory may grow a little as allocators and caches settle; keeping any part of
 # a request (the 1 MB body of the large case, or its arrays) would grow it by hundreds
 # of MiB over the burst.
