@@ -52,12 +52,10 @@ REQUEST_TIMEOUT = 10.0
 TRAFFIC_BUDGET_SECONDS = 60.0
 LOG_WAIT_SECONDS = 5.0
 
-pytestmark = [
-    pytest.mark.e2e,
-    pytest.mark.skipif(not os.access(NGINX, os.X_OK),
-                       reason=f"{NGINX} not installed (Debian package nginx, listed in "
-                              ".ci/system-packages.txt)"),
-]
+DOCKERFILE = REPO / "docker" / "Dockerfile"
+COMPOSE = REPO / "docker" / "compose.yaml"
+
+pytestmark = pytest.mark.e2e
 
 
 # --- the topology ----------------------------------------------------------------------
@@ -250,6 +248,9 @@ def _start_nginx(tmp: Path, upstream_ports: tuple[int, int]) -> Nginx | str:
 
 @pytest.fixture(scope="module")
 def topology(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Topology]:
+    if not os.access(NGINX, os.X_OK):
+        pytest.skip(f"{NGINX} not installed (Debian package nginx, listed in "
+                    ".ci/system-packages.txt)")
     tmp = tmp_path_factory.mktemp("replicas")
     with contextlib.ExitStack() as stack:
         started = time.monotonic()
@@ -487,3 +488,82 @@ def test_two_replicas_share_the_load_and_one_survives_the_other(topology: Topolo
     assert all(o.request_id in by_a and o.request_id not in by_b for o in after)
     assert b.process.poll() is not None
     assert _healthy(nginx.base_url) and _healthy(a.base_url) and not _healthy(b.base_url)
+
+
+# --- the container files, checked without a Docker engine ------------------------------
+
+def dockerfile_instructions() -> list[tuple[str, str]]:
+    """(INSTRUCTION, arguments) of docker/Dockerfile, continuation lines joined."""
+    logical, current = [], ""
+    for line in DOCKERFILE.read_text().splitlines():
+        if not current and (not line.strip() or line.lstrip().startswith("#")):
+            continue
+        current += line.rstrip()
+        if current.endswith("\\"):
+            current = current[:-1] + " "
+            continue
+        logical.append(current.strip())
+        current = ""
+    return [(ins.split(None, 1)[0].upper(), ins.split(None, 1)[1]) for ins in logical]
+
+
+def healthcheck_command() -> list[str]:
+    [args] = [a for ins, a in dockerfile_instructions() if ins == "HEALTHCHECK"]
+    match = re.search(r"\bCMD\s+(\[.*\])\s*$", args)
+    assert match, f"HEALTHCHECK of {DOCKERFILE} is not in exec form: {args}"
+    return json.loads(match.group(1))
+
+
+def test_compose_dockerfile_and_nginx_config_name_the_same_places() -> None:
+    import yaml  # PyYAML comes with openapi-spec-validator (the test extra)
+
+    compose = yaml.safe_load(COMPOSE.read_text())
+    services = compose["services"]
+    assert {"linfer-a", "linfer-b", "nginx"} <= services.keys()
+    for name in ("linfer-a", "linfer-b"):
+        build = services[name]["build"]
+        assert (COMPOSE.parent / build["context"] / build["dockerfile"]).resolve() == DOCKERFILE
+        assert "ports" not in services[name], f"{name} must be reached through nginx only"
+    nginx = services["nginx"]
+    assert "8080:8080" in nginx["ports"]
+    [mount] = [v for v in nginx["volumes"] if v.split(":")[1] == "/etc/nginx/nginx.conf"]
+    assert (COMPOSE.parent / mount.split(":")[0]).resolve() == NGINX_CONF
+    assert set(nginx["depends_on"]) == {"linfer-a", "linfer-b"}
+
+    instructions = dockerfile_instructions()
+    env = " ".join(a for ins, a in instructions if ins == "ENV")
+    bind = re.search(r"\bLINFER_BIND=(\S+)", env)
+    assert bind and bind.group(1) == "0.0.0.0:8000", env
+    assert ("EXPOSE", "8000") in instructions
+    assert instructions[0] == ("FROM", "python:3.11-slim")
+    [user] = [a for ins, a in instructions if ins == "USER"]
+    assert user.split(":")[0] not in ("root", "0"), user
+    [cmd] = [json.loads(a) for ins, a in instructions if ins == "CMD"]
+    assert cmd[:3] == ["gunicorn", "-c", "python:service.gunicorn_config"], cmd
+    assert cmd[-1] == "service.app:create_app()", cmd
+    assert any(ins == "RUN" and "pip install ." in a for ins, a in instructions)
+
+    # The upstream lines of nginx.conf are exactly the two replicas, on the image's port;
+    # nginx listens on the container side of the published port.
+    conf = NGINX_CONF.read_text()
+    servers = re.findall(r"^\s*server\s+(\S+?)(?:\s|;)", conf, flags=re.MULTILINE)
+    assert sorted(servers) == ["linfer-a:8000", "linfer-b:8000"], servers
+    assert re.findall(r"^\s*listen\s+(\S+);", conf, flags=re.MULTILINE) == ["8080"]
+    # The body limit is the service's default (service/settings.py).
+    from service.settings import Settings
+    size = re.search(r"^\s*client_max_body_size\s+(\d+)m;", conf, flags=re.MULTILINE)
+    assert size and int(size.group(1)) * 1024 * 1024 == Settings().max_body_bytes
+
+
+def test_the_image_healthcheck_command_probes_healthz(served: Server) -> None:
+    command = healthcheck_command()
+    assert command[:2] == ["python", "-c"] and "/healthz" in command[2], command
+    probe = [sys.executable, *command[1:]]
+    # A proxy in the environment must not be used for loopback (this one is dead).
+    env = {**server_env(), "http_proxy": f"http://{HOST}:9", "HTTP_PROXY": f"http://{HOST}:9"}
+    alive = subprocess.run(probe, env={**env, "LINFER_BIND": served.base_url[7:]},
+                           capture_output=True, timeout=15, stdin=subprocess.DEVNULL)
+    assert alive.returncode == 0, alive.stderr.decode(errors="replace")
+    dead = subprocess.run(probe, env={**env, "LINFER_BIND": f"0.0.0.0:{free_port()}"},
+                          capture_output=True, timeout=15, stdin=subprocess.DEVNULL)
+    assert dead.returncode != 0
