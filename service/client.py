@@ -11,7 +11,17 @@
     client.predict(model=result, new_rows=[[12.5]], kind="observation")
 
 numpy and pandas are optional: :meth:`Client.fit_frame`, :meth:`Client.fit_arrays`
-and :meth:`FitResult.coefficients_frame` import them when called. The request fields
+and :meth:`FitResult.coefficients_frame` import them when called.
+
+Data too large to send as rows is sent as a summary (README, "Summaries instead of
+rows")::
+
+    summary = summary_from_arrays(X, y, ["temp_c", "door_openings"])   # numpy
+    summary = summary_from_dask(X, y, ["temp_c", "door_openings"])     # dask.array
+    summary = merge_summaries([summary_a, summary_b])                  # partitions
+    result = client.fit_summary(summary, return_model=True)
+
+These import numpy (and dask) when called. The request fields
 are the service's own (README, ``openapi/linfer.yaml``), passed as keyword arguments;
 numpy arrays, numpy scalars and pandas Series are accepted anywhere in them, and NaN
 is sent as ``null`` (a missing value).
@@ -53,11 +63,14 @@ __all__ = [
     "LinferError", "TransportError", "Timeout", "ApiError",
     "FitResult", "Coefficient", "Interval", "FitStatistics", "FTest", "Conditioning",
     "Notice", "Numerics", "HypothesisResult", "PredictResult", "Prediction",
+    "summary_from_arrays", "summary_from_dask", "merge_summaries", "SUMMARY_KINDS",
 ]
 
 DEFAULT_BASE_URL = "http://127.0.0.1:8000"
 DEFAULT_TIMEOUT = 30.0
 MAX_RETRY_AFTER = 30.0
+SUMMARY_KINDS = ("triangular", "cross_products")
+INTERCEPT = "intercept"
 USER_AGENT = "linfer-python-client/0.1"
 _RETRYABLE = (ConnectionRefusedError, ConnectionResetError, ConnectionAbortedError,
               BrokenPipeError, http.client.RemoteDisconnected, http.client.IncompleteRead)
@@ -394,12 +407,13 @@ class PredictResult:
 
 # --- request bodies ------------------------------------------------------------------------
 
-def _optional(module: str, feature: str) -> ModuleType:
+def _optional(module: str, feature: str, install: str | None = None) -> ModuleType:
     try:
         return importlib.import_module(module)
     except ImportError as err:
         raise ImportError(f"{feature} needs {module}, which is not installed here; install "
-                          f"it (pip install {module}) or pass plain lists instead") from err
+                          f"it (pip install {install or module}) or pass plain lists "
+                          "instead") from err
 
 
 def _token(key: Any) -> str:
@@ -439,6 +453,161 @@ def _float_column(series: Any, name: str) -> Any:
                         "convert it (pandas.get_dummies for categories), or leave it out "
                         "with predictor_columns")
     return series.to_numpy(dtype="float64", na_value=np.nan)
+
+
+# --- summaries -----------------------------------------------------------------------------
+
+def _summary_names(column_names: Sequence[str] | None, k: int, intercept: bool) -> list[str]:
+    """The summary's column names: ``intercept`` first when asked, then the predictors."""
+    names = [f"x{j + 1}" for j in range(k)] if column_names is None else [
+        str(c) for c in column_names]
+    if len(names) != k:
+        raise ValueError(f"column_names has {len(names)} names for {k} columns of x")
+    repeated = sorted({n for n in names if names.count(n) > 1})
+    if repeated:
+        raise ValueError(f"column_names repeats {', '.join(map(repr, repeated))}")
+    if INTERCEPT in names:
+        raise ValueError("'intercept' names the column of ones, which the summary adds "
+                         "itself with intercept=True; rename the column")
+    return [INTERCEPT, *names] if intercept else names
+
+
+def _check_kind(kind: str) -> None:
+    if kind not in SUMMARY_KINDS:
+        raise ValueError(f"kind must be one of {', '.join(SUMMARY_KINDS)}, not {kind!r}")
+
+
+def _square_r(np: ModuleType, r: Any, size: int) -> Any:
+    """R padded with zero rows to ``size`` x ``size`` (a partition with fewer rows than columns)."""
+    r = np.asarray(r, dtype="float64")
+    if r.shape[0] < size:
+        r = np.vstack([r, np.zeros((size - r.shape[0], size))])
+    return r
+
+
+def _finished(np: ModuleType, kind: str, n: int, names: list[str], parts: dict[str, Any]) -> Json:
+    """The summary dict (plain lists and floats, ready for JSON); ValueError on NaN or infinity."""
+    for key, value in parts.items():
+        if not np.all(np.isfinite(value)):
+            raise ValueError(f"the {key} of the data is not finite: x or y holds NaN or an "
+                             "infinity (a summary has no missing values; drop or fill those "
+                             "rows first)")
+    out: Json = {"kind": kind, "n_observations": int(n), "column_names": names}
+    for key, value in parts.items():
+        out[key] = float(value) if key == "yty" else np.asarray(value).tolist()
+    return out
+
+
+def summary_from_arrays(x: Any, y: Any, column_names: Sequence[str] | None = None,
+                        intercept: bool = True, kind: str = "triangular") -> Json:
+    """The summary of numpy arrays (x: n x k, or n; y: n), to send with :meth:`Client.fit_summary`.
+
+    ``kind="triangular"`` (default) is R of a QR factorisation of ``[1 x y]`` (without
+    the ones when ``intercept=False``), which keeps the accuracy of a fit from the rows;
+    ``"cross_products"`` is X'X, X'y and y'y, which squares the condition number.
+    With ``intercept=True`` the column of ones is added here and named ``intercept``;
+    ``column_names`` name the columns of x (default x1..xk). A partition with fewer rows
+    than columns gets zero rows under its R, so partitions always merge
+    (:func:`merge_summaries`). NaN or infinity in the data is a ValueError.
+    """
+    np = _optional("numpy", "summary_from_arrays()")
+    _check_kind(kind)
+    xv = np.asarray(x, dtype="float64")
+    if xv.ndim == 1:
+        xv = xv[:, None]
+    if xv.ndim != 2:
+        raise ValueError(f"x must be 1- or 2-dimensional, not of shape {xv.shape}")
+    yv = np.asarray(y, dtype="float64")
+    if yv.ndim == 2 and yv.shape[1] == 1:
+        yv = yv[:, 0]
+    if yv.ndim != 1 or yv.shape[0] != xv.shape[0]:
+        raise ValueError(f"y must be 1-dimensional with one value per row of x "
+                         f"({xv.shape[0]}), not of shape {yv.shape}")
+    n, k = xv.shape
+    names = _summary_names(column_names, k, intercept)
+    columns = [np.ones((n, 1))] if intercept else []
+    design = np.hstack(columns + [xv])
+    if kind == "triangular":
+        r = np.linalg.qr(np.column_stack([design, yv]), mode="r")
+        parts: dict[str, Any] = {"r_factor": _square_r(np, r, len(names) + 1)}
+    else:
+        parts = {"xtx": design.T @ design, "xty": design.T @ yv, "yty": yv @ yv}
+    return _finished(np, kind, n, names, parts)
+
+
+def summary_from_dask(x: Any, y: Any, column_names: Sequence[str] | None = None,
+                      intercept: bool = True, kind: str = "triangular") -> Json:
+    """The summary of dask arrays, computed where the chunks are (dask.array.linalg.tsqr).
+
+    As :func:`summary_from_arrays`, for a ``dask.array`` x (n x k, or n, chunked by rows)
+    and y (n). The triangular summary is the R of ``dask.array.linalg.tsqr`` on
+    ``[1 x y]``: each chunk is factored where it lives and the R factors are merged by
+    stacking and factoring again. The cross products are one sum over the chunks. It is
+    computed with the scheduler in force (``dask.config.set(scheduler=...)`` or a
+    ``distributed.Client``); only the (k+2) x (k+2) result comes back. Chunk sizes
+    must be known (``x.compute_chunk_sizes()`` after a filter).
+    """
+    np = _optional("numpy", "summary_from_dask()")
+    da = _optional("dask.array", "summary_from_dask()", "'dask[array]'")
+    _check_kind(kind)
+    xv = da.asarray(x).astype("float64")
+    if xv.ndim == 1:
+        xv = xv[:, None]
+    if xv.ndim != 2:
+        raise ValueError(f"x must be 1- or 2-dimensional, not of shape {xv.shape}")
+    yv = da.asarray(y).astype("float64")
+    if yv.ndim == 2 and yv.shape[1] == 1:
+        yv = yv[:, 0]
+    if any(math.isnan(c) for c in xv.chunks[0]) or any(math.isnan(c) for c in yv.chunks[0]):
+        raise ValueError("x and y need known chunk sizes: call .compute_chunk_sizes() on them "
+                         "first (a filter leaves them unknown)")
+    if yv.ndim != 1 or yv.shape[0] != xv.shape[0]:
+        raise ValueError(f"y must be 1-dimensional with one value per row of x "
+                         f"({xv.shape[0]}), not of shape {yv.shape}")
+    n, k = xv.shape
+    names = _summary_names(column_names, k, intercept)
+    rows = xv.chunks[0]
+    columns = [da.ones((n, 1), chunks=(rows, 1), dtype="float64")] if intercept else []
+    design = da.concatenate(columns + [xv.rechunk({0: rows, 1: -1})], axis=1)
+    yv = yv.rechunk((rows,))
+    if kind == "triangular":
+        augmented = da.concatenate([design, yv[:, None]], axis=1).rechunk({1: -1})
+        _, r = da.linalg.tsqr(augmented, compute_svd=False)
+        parts: dict[str, Any] = {"r_factor": _square_r(np, r.compute(), len(names) + 1)}
+    else:
+        xtx, xty, yty = da.compute(design.T @ design, design.T @ yv, yv @ yv)
+        parts = {"xtx": xtx, "xty": xty, "yty": yty}
+    return _finished(np, kind, n, names, parts)
+
+
+def merge_summaries(summaries: Sequence[Mapping[str, Any]]) -> Json:
+    """One summary of the rows of several partitions (each a summary of the same columns).
+
+    Triangular: the R factors stacked and factored again (the merge step of TSQR), which
+    keeps their accuracy. Cross products: the sums added. The kinds and the column
+    names must be the same in every summary.
+    """
+    np = _optional("numpy", "merge_summaries()")
+    parts = list(summaries)
+    if not parts:
+        raise ValueError("merge_summaries() needs at least one summary")
+    kind, names = parts[0]["kind"], list(parts[0]["column_names"])
+    _check_kind(kind)
+    for i, s in enumerate(parts[1:], start=1):
+        if s["kind"] != kind or list(s["column_names"]) != names:
+            raise ValueError(f"summary {i} is {s['kind']} of {list(s['column_names'])}; "
+                             f"summary 0 is {kind} of {names}: only summaries of the same "
+                             "kind and columns merge")
+    n = sum(int(s["n_observations"]) for s in parts)
+    if kind == "triangular":
+        stacked = np.vstack([np.asarray(s["r_factor"], dtype="float64") for s in parts])
+        merged: dict[str, Any] = {"r_factor": _square_r(
+            np, np.linalg.qr(stacked, mode="r"), len(names) + 1)}
+    else:
+        merged = {"xtx": sum(np.asarray(s["xtx"], dtype="float64") for s in parts),
+                  "xty": sum(np.asarray(s["xty"], dtype="float64") for s in parts),
+                  "yty": math.fsum(float(s["yty"]) for s in parts)}
+    return _finished(np, kind, n, names, merged)
 
 
 # --- the client ----------------------------------------------------------------------------
@@ -555,6 +724,18 @@ class Client:
         if column_names is not None:
             body["column_names"] = [str(c) for c in column_names]
         return self.fit(**body, **options)
+
+    def fit_summary(self, summary: Mapping[str, Any], **options: Any) -> FitResult:
+        """POST /v1/fit with a triangular or cross-products ``summary`` instead of rows.
+
+        ``summary`` is a dict as :func:`summary_from_arrays`, :func:`summary_from_dask` or
+        :func:`merge_summaries` make (or one computed elsewhere, e.g. by SQL). Options:
+        levels, rank_deficiency, simultaneous, hypotheses, return_model. Weights, robust
+        covariances and per-row output need the rows and are a 422 ApiError; the answer
+        has no residual checks and warns ``no_rows`` (and ``cross_products_precision``
+        with the digits lost, for cross products).
+        """
+        return self.fit(summary=summary, **options)
 
     def predict(self, *, model: FitResult | Mapping[str, Any] | None = None,
                 **request_fields: Any) -> PredictResult:

@@ -61,7 +61,7 @@ class ContractClient(FlaskClient):
         sent = response.request
         # The app has read the body; the check needs only the method and the path.
         builder = EnvironBuilder(path=sent.path, base_url=SERVER, method=sent.method,
-                                 query_string=sent.query_string,
+                                 query_string=sent.query_string.decode("latin-1"),
                                  content_type="application/json", data=b"{}")
         check_pair(Request(builder.get_environ()), response)
         return response

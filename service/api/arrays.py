@@ -107,6 +107,11 @@ def as_vector(value: object, where: tuple[str | int, ...], strict: bool = False)
     boolean literal outside the envelope's own flags) takes the slower path that
     looks at every value's type, so a boolean is pointed at instead.
     """
+    if isinstance(value, np.ndarray) and value.dtype == np.float64 and value.ndim == 1:
+        # A column already read by a table parser (CSV, Arrow): NaN is a missing value.
+        if not value.size:
+            raise invalid([FieldError(pointer(*where), "must not be empty")])
+        return _finite(value, where)
     if not isinstance(value, list):
         raise invalid([FieldError(pointer(*where), "must be a list of numbers")])
     if not value:

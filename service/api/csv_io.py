@@ -46,29 +46,13 @@ import pandas as pd
 
 from .arrays import MAX_POINTED, invalid
 from .problems import ApiProblem, FieldError, pointer
+from .query import NUMBER as _NUMBER
+from .query import QUERY_PARAMETERS, options_from_query
 
 __all__ = ["table_body_from_csv", "coefficients_csv", "QUERY_PARAMETERS", "CSV_MEDIA_TYPE"]
 
 CSV_MEDIA_TYPE = "text/csv"
 
-#: The query parameters of ``POST /v1/fit`` with a CSV body, and the kind of each.
-QUERY_PARAMETERS: dict[str, str] = {
-    "response_column": "name",
-    "predictor_columns": "names",
-    "weights": "name",
-    "levels": "numbers",
-    "intercept": "boolean",
-    "missing": "word",
-    "rank_deficiency": "word",
-    "covariance": "word",
-    "simultaneous": "word_or_none",
-    "include": "words",
-    "return_model": "boolean",
-}
-_LISTS = {"names", "numbers", "words"}
-
-# A decimal number with optional spaces or tabs around it: what a cell may hold.
-_NUMBER = re.compile(r"[ \t]*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?[ \t]*")
 # Bytes that cells of plain numbers are made of; data holding only these take the
 # fast path (pandas would read "true" as 1.0 and "inf" as infinity: they hold others).
 _NUMERIC_BYTES = b"0123456789+-.eE \t,\r\n\""
@@ -83,78 +67,6 @@ def _malformed(detail: str) -> ApiProblem:
 
 def _quote(text: str) -> str:
     return repr(text if len(text) <= _QUOTED_MAX else text[:_QUOTED_MAX] + "...")
-
-
-# --- query parameters --------------------------------------------------------------------
-
-def _values(query: Mapping[str, Any], key: str) -> list[str]:
-    if hasattr(query, "getlist"):  # a werkzeug MultiDict (request.args): every value
-        return [str(v) for v in query.getlist(key)]
-    value = query[key]
-    if isinstance(value, (list, tuple)):
-        return [str(v) for v in value]
-    return [str(value)]
-
-
-def _split(values: list[str]) -> list[str]:
-    return [part.strip() for v in values for part in v.split(",")]
-
-
-def _options(query: Mapping[str, Any]) -> dict[str, Any]:
-    """The body's options from the query parameters; one 422 with every fault."""
-    errors: list[FieldError] = []
-    options: dict[str, Any] = {}
-    for key in query:
-        kind = QUERY_PARAMETERS.get(key)
-        if kind is None:
-            errors.append(FieldError("", f"unknown query parameter {key!r}; the parameters "
-                                     f"are {', '.join(QUERY_PARAMETERS)}"))
-            continue
-        values = _values(query, key)
-        if kind not in _LISTS and len(values) > 1:
-            errors.append(FieldError(pointer(key), f"query parameter {key} is given "
-                                     f"{len(values)} times; give it once"))
-            continue
-        if kind in _LISTS:
-            parts = _split(values)
-            empty = [i for i, p in enumerate(parts) if not p]
-            if empty:
-                errors.append(FieldError(pointer(key, empty[0]), f"query parameter {key} "
-                                         f"has an empty item at position {empty[0]} "
-                                         "(items are separated by commas)"))
-                continue
-            if kind == "numbers":
-                bad = [i for i, p in enumerate(parts) if not _NUMBER.fullmatch(p)]
-                for i in bad:
-                    errors.append(FieldError(pointer(key, i), f"query parameter {key}: "
-                                             f"{_quote(parts[i])} is not a number"))
-                if bad:
-                    continue
-                options[key] = [float(p) for p in parts]
-            else:
-                options[key] = parts
-            continue
-        value = values[0].strip()
-        if kind == "boolean":
-            if value.lower() not in ("true", "false"):
-                errors.append(FieldError(pointer(key), f"query parameter {key} must be true "
-                                         f"or false, not {_quote(value)}"))
-                continue
-            options[key] = value.lower() == "true"
-        elif kind == "word_or_none":
-            options[key] = None if value.lower() in ("", "none", "null") else value
-        else:
-            if not value:
-                errors.append(FieldError(pointer(key), f"query parameter {key} is empty"))
-                continue
-            options[key] = value
-    if "response_column" not in query:
-        errors.insert(0, FieldError("", "query parameter response_column is required: it "
-                                    "names the CSV column that holds the response"))
-    if errors:
-        raise invalid(errors, f"{len(errors)} query parameter problem(s): "
-                      + "; ".join(e.message for e in errors[:3]))
-    return options
 
 
 # --- reading the table -------------------------------------------------------------------
@@ -348,13 +260,6 @@ def _used_columns(header: list[str], options: dict[str, Any]) -> list[int]:
     return [j for j, name in enumerate(header) if name in wanted]
 
 
-def _as_json_list(values: np.ndarray) -> list[float | None]:
-    out: list[float | None] = values.tolist()
-    if np.isnan(values).any():
-        out = [None if v != v else v for v in out]
-    return out
-
-
 def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
     """A /v1/fit body in the ``table`` layout from a CSV upload and its query parameters.
 
@@ -375,7 +280,8 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
     Returns
     -------
     dict
-        ``{"table": {column: [float | None, ...]}, "response_column": ..., <options>}``,
+        ``{"table": {column: float array (NaN where missing)}, "response_column": ...,
+        <options>}``,
         the columns in the header's order. When ``predictor_columns`` is given, only
         the response, the predictors and the weights column are in ``table``.
 
@@ -390,7 +296,7 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
         (pointer ``/table/<column>/<row>``; the message names the row, the CSV line
         and the column). Up to 10 cells are pointed at; ``detail`` counts them all.
     """
-    options = _options(query)
+    options = options_from_query(query)
     body, text = _decode(raw)
     header, header_line = _header(text)
     used = _used_columns(header, options)
@@ -405,7 +311,8 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
     if n == 0:
         raise invalid([FieldError("/table", f"the CSV has a header row (line {header_line}) "
                                   "but no data rows")])
-    return {"table": {header[j]: _as_json_list(c) for j, c in zip(used, columns)}, **options}
+    return {"table": {header[j]: np.ascontiguousarray(c, dtype=np.float64)
+                      for j, c in zip(used, columns)}, **options}
 
 
 # --- writing the coefficient table ---------------------------------------------------------

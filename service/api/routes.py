@@ -20,6 +20,7 @@ from ..stats.model import ModelSummary
 from ..stats.predict import predict
 from ..stats.summaries import Summary, SummaryError
 from .arrays import invalid
+from .arrow_io import ARROW_MEDIA_TYPE, table_body_from_arrow
 from .csv_io import CSV_MEDIA_TYPE, coefficients_csv, table_body_from_csv
 from .decode import decode_design, decode_fit, fit_options, load_request
 from .encode import (alias_entry, encode_fit, encode_hypothesis, encode_rows, intervals,
@@ -131,11 +132,13 @@ def _request() -> tuple[Settings, object, int]:
 
 @bp.post("/v1/fit")
 def fit_endpoint() -> Response:
-    if request.mimetype == CSV_MEDIA_TYPE:
-        # A spreadsheet's table: the CSV becomes the table layout, options come from
-        # the query string, and problems point into that table (/table/<column>/<row>).
+    if request.mimetype in (CSV_MEDIA_TYPE, ARROW_MEDIA_TYPE):
+        # A table as CSV or Arrow: it becomes the table layout, options come from the
+        # query string, and problems point into that table (/table/<column>/<row>).
         settings = current_app.config["LINFER_SETTINGS"]
-        body, booleans = table_body_from_csv(_read_body(), request.args), 0
+        reader = table_body_from_csv if request.mimetype == CSV_MEDIA_TYPE \
+            else table_body_from_arrow
+        body, booleans = reader(_read_body(), request.args), 0
     else:
         settings, body, booleans = _request()
     req = decode_fit(body, settings, booleans)

@@ -113,6 +113,8 @@ def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
         An unknown or aliased coefficient, an empty restriction, or restrictions
         that repeat or contradict one another.
     """
+    if not hypotheses:
+        return []
     # Dependence among restrictions is judged in standard-error units, so that the
     # verdict does not change with the units of the predictors.
     with np.errstate(invalid="ignore"):

@@ -32,7 +32,7 @@ from typing import Callable
 
 import mpmath
 import numpy as np
-from scipy.linalg import lapack, solve_triangular
+from scipy.linalg import lapack
 
 __all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "solve"]
 
@@ -156,19 +156,31 @@ def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
 def _householder(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Pivoted Householder QR of ``a`` (n x k, n >= k): the packed factor, pivots, tau."""
     k = a.shape[1]
-    _, _, _, work, _ = lapack.dgeqp3(a, lwork=-1)
-    lwork = max(int(work[0]), 3 * (k + 1))
+    # LAPACK's optimal workspace for dgeqp3 is 2k + (k + 1) nb with block size nb;
+    # 64 covers the usual nb without a workspace query per call.
+    lwork = 2 * k + (k + 1) * 64
     qr, jpvt, tau, _, info = lapack.dgeqp3(np.asfortranarray(a), lwork=lwork)
     if info != 0:
         raise ArithmeticError(f"dgeqp3 failed with info={info}")
     return qr, jpvt - 1, tau
 
 
+def solve_triangular(r: np.ndarray, b: np.ndarray, trans: str = "N") -> np.ndarray:
+    """``R^-1 b`` (or ``R^-T b``) for upper-triangular R, by LAPACK ``dtrtrs``.
+
+    Called directly: scipy.linalg.solve_triangular's checks cost more than the solve
+    itself on the small systems of a typical request.
+    """
+    x, info = lapack.dtrtrs(r, b, lower=0, trans=0 if trans == "N" else 1)
+    if info < 0:
+        raise ArithmeticError(f"dtrtrs failed with info={info}")
+    return x
+
+
 def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
     """``Q' v`` for the Householder factor held in ``qr`` and ``tau``."""
     c = np.asfortranarray(v.reshape(-1, 1))
-    _, work, _ = lapack.dormqr("L", "T", qr, tau, c, lwork=-1)
-    cq, _, info = lapack.dormqr("L", "T", qr, tau, c, lwork=max(int(work[0]), 1))
+    cq, _, info = lapack.dormqr("L", "T", qr, tau, c, lwork=64)
     if info != 0:
         raise ArithmeticError(f"dormqr failed with info={info}")
     return cq[:, 0]
@@ -177,8 +189,7 @@ def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
 def _apply_q(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
     """``Q v`` for the Householder factor held in ``qr`` and ``tau``."""
     c = np.asfortranarray(v.reshape(-1, 1))
-    _, work, _ = lapack.dormqr("L", "N", qr, tau, c, lwork=-1)
-    cq, _, info = lapack.dormqr("L", "N", qr, tau, c, lwork=max(int(work[0]), 1))
+    cq, _, info = lapack.dormqr("L", "N", qr, tau, c, lwork=64)
     if info != 0:
         raise ArithmeticError(f"dormqr failed with info={info}")
     return cq[:, 0]

@@ -65,8 +65,8 @@ def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool) -> tuple[float
         return math.nan, int(z.shape[1]), math.nan
     scale = np.max(np.abs(z), axis=0)
     a = np.column_stack([np.ones(n), z / scale])
-    coef, *_ = np.linalg.lstsq(a, u, rcond=None)
-    rank = int(np.linalg.matrix_rank(a)) - 1
+    coef, _, rank_a, _ = np.linalg.lstsq(a, u, rcond=None)
+    rank = int(rank_a) - 1
     fitted = a @ coef
     centred = u - u.mean()
     ss_tot = float(centred @ centred)
@@ -81,7 +81,12 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
     raw = _weighted(solution, weights)
     n = raw.shape[0]
     probs = (0.0, 0.25, 0.5, 0.75, 1.0)
-    quantiles = tuple((p, float(q)) for p, q in zip(probs, np.quantile(raw, probs)))
+    ordered = np.sort(raw)
+    position = np.array(probs) * (n - 1)
+    low = np.floor(position).astype(int)
+    high = np.minimum(low + 1, n - 1)
+    values = ordered[low] + (position - low) * (ordered[high] - ordered[low])
+    quantiles = tuple((p, float(q)) for p, q in zip(probs, values))  # linear interpolation
     # Every statistic below is scale-free: work on e / max|e| so that fourth powers of
     # residuals near 1e100 neither overflow nor underflow.
     top = float(np.max(np.abs(raw))) if n else 0.0

@@ -34,7 +34,7 @@ import urllib.error
 import urllib.request
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any, Iterator, Mapping
+from typing import Any, Iterator, Mapping
 
 import pytest
 
@@ -96,40 +96,19 @@ def loopback_config(text: str, prefix: Path, listen_port: int,
 
 
 @dataclass
-class Nginx:
-    base_url: str
-    process: subprocess.Popen
-    access_log_path: Path
-    error_log_path: Path
-    _files: list[IO[bytes]] = field(default_factory=list)
-
-    def access_log(self) -> list[dict[str, Any]]:
-        return _json_lines(self.access_log_path.read_text(errors="replace"))
-
-    def error_log(self) -> str:
-        return self.error_log_path.read_text(errors="replace")
-
-    def stop(self) -> None:
-        """SIGQUIT (graceful), then SIGKILL the process group after 10 s."""
-        try:
-            if self.process.poll() is None:
-                _signal_group(self.process, signal.SIGQUIT)
-                try:
-                    self.process.wait(timeout=TERM_GRACE_SECONDS)
-                except subprocess.TimeoutExpired:
-                    _signal_group(self.process, signal.SIGKILL)
-                    self.process.wait(timeout=TERM_GRACE_SECONDS)
-        finally:
-            for f in self._files:
-                f.close()
-            self._files.clear()
-
-
-@dataclass
 class Topology:
-    nginx: Nginx
+    nginx: Server       # its stderr is nginx's error log
     replica_a: Server
     replica_b: Server
+
+    @property
+    def nginx_access_log(self) -> Path:
+        return access_log_of(self.nginx)
+
+
+def access_log_of(nginx: Server) -> Path:
+    """nginx's stdout (`access_log /dev/stdout`), beside its stderr (`error_log stderr`)."""
+    return nginx.stderr_path.with_name("access.log")
 
 
 def _signal_group(process: subprocess.Popen, sig: int) -> None:
@@ -148,6 +127,18 @@ def _json_lines(text: str) -> list[dict[str, Any]]:
             with contextlib.suppress(ValueError):
                 docs.append(json.loads(line))
     return docs
+
+
+def _wait_healthy(process: subprocess.Popen, base_url: str) -> str | None:
+    """None once GET /healthz answers 200, else why not (exited, or no answer in 30 s)."""
+    deadline = time.monotonic() + STARTUP_SECONDS
+    while time.monotonic() < deadline:
+        if process.poll() is not None:
+            return f"exited with status {process.returncode} before answering"
+        if _healthy(base_url):
+            return None
+        time.sleep(POLL_SECONDS)
+    return f"did not answer GET /healthz within {STARTUP_SECONDS:.0f} s"
 
 
 def _start_replica(tmp: Path, label: str) -> Server | str:
@@ -174,20 +165,13 @@ def _start_replica(tmp: Path, label: str) -> Server | str:
         err.close()
         raise
     server = Server(base_url, process, stderr_path, [out, err])
-    deadline = time.monotonic() + STARTUP_SECONDS
     try:
-        while time.monotonic() < deadline:
-            if process.poll() is not None:
-                reason = f"exited with status {process.returncode} before answering"
-                break
-            if _healthy(base_url):
-                return server
-            time.sleep(POLL_SECONDS)
-        else:
-            reason = f"did not answer GET /healthz within {STARTUP_SECONDS:.0f} s"
+        reason = _wait_healthy(process, base_url)
     except BaseException:
         server.stop()
         raise
+    if reason is None:
+        return server
     server.stop()
     return f"{' '.join(cmd)}\n  {reason}\n--- stderr ---\n{server.stderr()}--- end ---"
 
@@ -202,14 +186,13 @@ def _replica(tmp: Path, label: str) -> Server:
     pytest.fail(f"replica {label} did not start:\n" + "\n\n".join(failures), pytrace=False)
 
 
-def _start_nginx(tmp: Path, upstream_ports: tuple[int, int]) -> Nginx | str:
+def _start_nginx(tmp: Path, upstream_ports: tuple[int, int]) -> Server | str:
     port = free_port()
     prefix = tmp / f"nginx-{port}"
     prefix.mkdir()
     conf = prefix / "nginx.conf"
     conf.write_text(loopback_config(NGINX_CONF.read_text(), prefix, port, upstream_ports))
-    access_log_path = prefix / "access.log"   # nginx's stdout: `access_log /dev/stdout`
-    error_log_path = prefix / "error.log"     # nginx's stderr: `error_log stderr`
+    error_log_path = prefix / "error.log"
     cmd = [str(NGINX), "-e", "stderr", "-p", str(prefix), "-c", str(conf),
            "-g", "daemon off;"]
     check = subprocess.run([*cmd[:-2], "-t"], capture_output=True, timeout=10,
@@ -217,7 +200,7 @@ def _start_nginx(tmp: Path, upstream_ports: tuple[int, int]) -> Nginx | str:
     if check.returncode != 0:
         pytest.fail(f"nginx -t rejects the loopback variant of {NGINX_CONF}:\n"
                     f"{check.stderr.decode(errors='replace')}", pytrace=False)
-    out = open(access_log_path, "wb")
+    out = open(error_log_path.with_name("access.log"), "wb")
     err = open(error_log_path, "wb")
     try:
         process = subprocess.Popen(cmd, cwd=prefix, stdin=subprocess.DEVNULL, stdout=out,
@@ -226,24 +209,17 @@ def _start_nginx(tmp: Path, upstream_ports: tuple[int, int]) -> Nginx | str:
         out.close()
         err.close()
         raise
-    nginx = Nginx(f"http://{HOST}:{port}", process, access_log_path, error_log_path,
-                  [out, err])
-    deadline = time.monotonic() + STARTUP_SECONDS
+    # Server.stop: SIGTERM (nginx's fast shutdown) to the group, SIGKILL after 10 s.
+    nginx = Server(f"http://{HOST}:{port}", process, error_log_path, [out, err])
     try:
-        while time.monotonic() < deadline:
-            if process.poll() is not None:
-                reason = f"exited with status {process.returncode}"
-                break
-            if _healthy(nginx.base_url):  # /healthz through nginx: a replica answered
-                return nginx
-            time.sleep(POLL_SECONDS)
-        else:
-            reason = f"did not answer GET /healthz within {STARTUP_SECONDS:.0f} s"
+        reason = _wait_healthy(process, nginx.base_url)  # through nginx: a replica answered
     except BaseException:
         nginx.stop()
         raise
+    if reason is None:
+        return nginx
     nginx.stop()
-    return f"{' '.join(cmd)}\n  {reason}\n--- stderr ---\n{nginx.error_log()}--- end ---"
+    return f"{' '.join(cmd)}\n  {reason}\n--- stderr ---\n{nginx.stderr()}--- end ---"
 
 
 @pytest.fixture(scope="module")
@@ -267,7 +243,7 @@ def topology(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Topology]:
         failures = []
         for _ in range(START_ATTEMPTS):
             result = _start_nginx(tmp, ports)
-            if isinstance(result, Nginx):
+            if isinstance(result, Server):
                 stack.callback(result.stop)
                 break
             failures.append(result)
@@ -301,11 +277,11 @@ def post(url: str, body: bytes, request_id: str | None, index: int = 0) -> Outco
     try:
         with OPENER.open(req, timeout=REQUEST_TIMEOUT) as resp:
             return Outcome(index, request_id or "", started, time.monotonic(), resp.status,
-                           resp.read(), headers=dict(resp.headers))
+                           resp.read(), headers=resp.headers)
     except urllib.error.HTTPError as exc:
         with exc:
             return Outcome(index, request_id or "", started, time.monotonic(), exc.code,
-                           exc.read(), headers=dict(exc.headers))
+                           exc.read(), headers=exc.headers)
     except (urllib.error.URLError, OSError, http.client.HTTPException) as exc:
         # No (complete) answer: refused, reset, timed out, or cut off after the headers.
         return Outcome(index, request_id or "", started, time.monotonic(), None,
@@ -327,11 +303,12 @@ def served_ids(server: Server) -> dict[str, dict[str, Any]]:
             if "request_id" in doc and "endpoint" in doc}
 
 
-def wait_for_nginx_log(nginx: Nginx, ids: set[str]) -> dict[str, dict[str, Any]]:
+def wait_for_nginx_log(nginx: Server, ids: set[str]) -> dict[str, dict[str, Any]]:
     """nginx writes its access-log line just after the answer: wait (bounded) for all."""
     deadline = time.monotonic() + LOG_WAIT_SECONDS
     while True:
-        lines = {doc.get("request_id"): doc for doc in nginx.access_log()}
+        text = access_log_of(nginx).read_text(errors="replace")
+        lines = {doc.get("request_id"): doc for doc in _json_lines(text)}
         if ids <= lines.keys() or time.monotonic() > deadline:
             return lines
         time.sleep(POLL_SECONDS)
@@ -392,7 +369,7 @@ def test_the_balancer_passes_request_ids_and_answers_its_own_errors_as_problems(
     assert status == 200 and b"linfer_requests_total" in text
 
     # No body in the balancer's log.
-    raw = nginx.access_log_path.read_text()
+    raw = topology.nginx_access_log.read_text()
     assert "kwh" not in raw and "temp_c" not in raw
 
 
@@ -451,7 +428,8 @@ def test_two_replicas_share_the_load_and_one_survives_the_other(topology: Topolo
           f"before the kill {len(before)} (A {sum(o.request_id in by_a for o in before)}, "
           f"B {sum(o.request_id in by_b for o in before)}), in flight {len(in_flight)}, "
           f"after {len(after)}; failed {len(failed)}; retried by nginx {len(retried)}; "
-          f"kill took {1000 * (kill_done - kill_started):.0f} ms")
+          f"kill took {1000 * (kill_done - kill_started):.0f} ms"
+          + "".join(f"\n  failed {o.request_id}: {o.status} {o.error[:100]}" for o in failed))
 
     # Failures only among the few in flight at the kill, never before or after.
     in_flight_ids = {o.request_id for o in in_flight}
@@ -546,7 +524,7 @@ def test_compose_dockerfile_and_nginx_config_name_the_same_places() -> None:
     # The upstream lines of nginx.conf are exactly the two replicas, on the image's port;
     # nginx listens on the container side of the published port.
     conf = NGINX_CONF.read_text()
-    servers = re.findall(r"^\s*server\s+(\S+?)(?:\s|;)", conf, flags=re.MULTILINE)
+    servers = re.findall(r"^\s*server\s+([^\s;{]+)", conf, flags=re.MULTILINE)
     assert sorted(servers) == ["linfer-a:8000", "linfer-b:8000"], servers
     assert re.findall(r"^\s*listen\s+(\S+);", conf, flags=re.MULTILINE) == ["8080"]
     # The body limit is the service's default (service/settings.py).

@@ -14,13 +14,15 @@ import math
 from pathlib import Path
 
 import orjson
+import numpy as np
 import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from werkzeug.datastructures import MultiDict
 
 from service.api import csv_io
-from service.api.csv_io import coefficients_csv, table_body_from_csv
+from service.api.csv_io import coefficients_csv
+from service.api.csv_io import table_body_from_csv as read_csv_body
 from service.api.problems import ApiProblem
 
 REPO = Path(__file__).resolve().parents[2]
@@ -38,6 +40,22 @@ def problem_of(raw: bytes, query) -> ApiProblem:
 
 def pointers(p: ApiProblem) -> list[str]:
     return [e.pointer for e in p.errors]
+
+
+def table_body_from_csv(raw, query):
+    """The body with its columns as JSON would carry them (NaN as None), for comparison."""
+    body = read_csv_body(raw, query)
+    body["table"] = {name: [None if v != v else v for v in column.tolist()]
+                     for name, column in body["table"].items()}
+    return body
+
+
+def test_columns_come_as_float_arrays_with_nan_for_missing():
+    # The table goes to the decoder as arrays, never through Python lists.
+    body = read_csv_body(b"x,y\n1,2\n,3\n4,5\n", {"response_column": "y"})
+    assert all(isinstance(c, np.ndarray) and c.dtype == np.float64
+               for c in body["table"].values())
+    assert np.isnan(body["table"]["x"][1])
 
 
 # --- the demo file ----------------------------------------------------------------------

@@ -1,0 +1,190 @@
+"""Large requests: an end-to-end HTTP fit against the in-process floor, and worker memory.
+
+    python tests/benchmarks/bench_large_requests.py [--repeat 5] [--big]
+
+For a 100,000 x 10 design (and 1,000,000 x 10 with ``--big``, on a server whose
+LINFER_MAX_BODY_BYTES, LINFER_MAX_CELLS and LINFER_TIMEOUT are raised for it), in the
+design_matrix layout as JSON:
+
+- end to end: POST /v1/fit to `linfer serve --workers 2` on 127.0.0.1, from the first
+  byte sent to the last byte of the answer read (the server's own access-log duration
+  is shown beside it);
+- the floor, in this process: ``orjson.loads`` of the same body, ``numpy.asarray`` of
+  the design and response, the intercept column, and one
+  ``scipy.linalg.qr(mode="economic")`` of the design: what any service must do at least;
+- the in-process service path (the Flask test client) between the two, to separate the
+  cost of the computation from the cost of serving it;
+- the peak memory growth of the worker per request: VmHWM after the request minus
+  VmRSS before it (VmHWM reset through /proc/<pid>/clear_refs before each request),
+  over the body size.
+
+Goals from the issue "Serving for real": end to end <= 1.5 x the floor, peak growth
+<= 6 x the body size.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import time
+
+from _harness import (linfer_server, median, peak_reset, proc_kib, table,
+                      wait_for_workers, write_results)
+
+import numpy as np  # noqa: E402  (after _harness: one BLAS thread)
+import orjson  # noqa: E402
+import scipy.linalg  # noqa: E402
+
+from e2e.test_load import post  # noqa: E402
+
+PREDICTORS, SEED = 10, 7
+GOAL_TIME_RATIO, GOAL_MEMORY_RATIO = 1.5, 6.0
+
+
+def request_body(rows: int) -> bytes:
+    rng = np.random.default_rng(SEED)
+    x = rng.normal(size=(rows, PREDICTORS)) * np.linspace(1.0, 50.0, PREDICTORS)
+    y = 10.0 + x @ np.linspace(-2.0, 2.0, PREDICTORS) + rng.normal(scale=5.0, size=rows)
+    return orjson.dumps({"design_matrix": x.tolist(), "response": y.tolist()})
+
+
+def floor_once(body: bytes) -> float:
+    start = time.perf_counter()
+    doc = orjson.loads(body)
+    x = np.asarray(doc["design_matrix"], dtype=float)
+    y = np.asarray(doc["response"], dtype=float)
+    design = np.column_stack([np.ones(x.shape[0]), x])
+    q, r = scipy.linalg.qr(design, mode="economic")
+    elapsed = time.perf_counter() - start
+    assert r.shape == (PREDICTORS + 1, PREDICTORS + 1) and y.shape[0] == x.shape[0]
+    return elapsed
+
+
+def in_process_once(client, body: bytes) -> float:
+    start = time.perf_counter()
+    resp = client.post("/v1/fit", data=body, content_type="application/json")
+    elapsed = time.perf_counter() - start
+    assert resp.status_code == 200, resp.data[:300]
+    return elapsed
+
+
+def served_once(server, body: bytes) -> dict:
+    """One POST; the time, and the peak growth of the worker that served it (KiB)."""
+    pids = wait_for_workers(server.process.pid, 2, 10.0)
+    reset = all(peak_reset(pid) for pid in pids)
+    rss = {pid: proc_kib(pid, "VmRSS") for pid in pids}
+    hwm = {pid: proc_kib(pid, "VmHWM") for pid in pids}
+    start = time.perf_counter()
+    reply = post(server.base_url, "/v1/fit", body, timeout=600.0)
+    elapsed = time.perf_counter() - start
+    assert reply.status == 200, reply.body[:300]
+    growth = {}
+    for pid in pids:
+        try:
+            after = proc_kib(pid, "VmHWM")
+        except OSError:  # the worker was replaced
+            continue
+        # Without the reset VmHWM keeps an older peak: count only what this request added.
+        growth[pid] = after - (rss[pid] if reset else max(rss[pid], hwm[pid]))
+    return {"seconds": elapsed, "peak_growth_kib": max(growth.values()), "hwm_reset": reset,
+            "rss_before_kib": rss}
+
+
+def server_durations(server, rows: int) -> list[float]:
+    """duration_ms of the /v1/fit lines with ``rows`` in the server's JSON access log."""
+    out = []
+    for line in server.stderr().splitlines():
+        if line.startswith("{") and '"endpoint":"/v1/fit"' in line:
+            entry = json.loads(line)
+            if entry.get("rows") == rows and entry.get("status") == 200:
+                out.append(entry["duration_ms"] / 1e3)
+    return out
+
+
+def measure(rows: int, repeat: int, env: dict[str, str] | None) -> dict:
+    body = request_body(rows)
+    print(f"\n{rows} x {PREDICTORS}: body {len(body) / 1e6:.1f} MB")
+    floor = [floor_once(body) for _ in range(repeat)]
+    print(f"  floor (orjson + asarray + qr): median {median(floor):.3f} s")
+
+    for name in [n for n in os.environ if n.startswith("LINFER_")]:
+        del os.environ[name]
+    os.environ.update(env or {})
+    from service.app import create_app
+    client = create_app().test_client()
+    in_process_once(client, body)  # warm-up
+    in_process = [in_process_once(client, body) for _ in range(repeat)]
+    del client
+    print(f"  in-process service path: median {median(in_process):.3f} s")
+
+    with linfer_server(env=env, label=f"large-{rows}") as server:
+        served = [served_once(server, body) for _ in range(repeat + 1)]
+        logged = server_durations(server, rows)
+    first, served = served[0], served[1:]  # the first request of a worker also warms it up
+    seconds = [s["seconds"] for s in served]
+    growth = [s["peak_growth_kib"] * 1024 for s in served]
+    print(f"  end to end over HTTP: median {median(seconds):.3f} s (first {first['seconds']:.3f} s);"
+          f" server-side (access log) median {median(logged[1:] or logged):.3f} s")
+    print(f"  worker peak growth: median {median(growth) / 1e6:.1f} MB = "
+          f"{median(growth) / len(body):.2f} x body (first request "
+          f"{first['peak_growth_kib'] * 1024 / len(body):.2f} x)")
+    return {
+        "rows": rows, "columns": PREDICTORS + 1, "body_bytes": len(body), "repeat": repeat,
+        "floor_s": floor, "in_process_s": in_process, "served_s": seconds,
+        "served_first_s": first["seconds"], "server_logged_s": logged,
+        "peak_growth_bytes": growth, "first_peak_growth_bytes": first["peak_growth_kib"] * 1024,
+        "hwm_reset": all(s["hwm_reset"] for s in served),
+        "time_ratio": median(seconds) / median(floor),
+        "in_process_ratio": median(in_process) / median(floor),
+        "memory_ratio": median(growth) / len(body),
+    }
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--big", action="store_true", help="also 1,000,000 x 10")
+    args = parser.parse_args()
+    cases = [(100_000, None)]
+    if args.big:
+        cases.append((1_000_000, {"LINFER_MAX_BODY_BYTES": str(512 * 1024 * 1024),
+                                  "LINFER_MAX_CELLS": str(20_000_000),
+                                  "LINFER_TIMEOUT": "600"}))
+    results = [measure(rows, args.repeat if rows <= 100_000 else max(2, args.repeat // 2),
+                       env) for rows, env in cases]
+    rows = [[f"{r['rows']} x {PREDICTORS}", f"{r['body_bytes'] / 1e6:.1f}",
+             f"{median(r['floor_s']):.3f}", f"{median(r['in_process_s']):.3f}",
+             f"{median(r['served_s']):.3f}", f"{r['time_ratio']:.2f}",
+             f"{median(r['peak_growth_bytes']) / 1e6:.1f}", f"{r['memory_ratio']:.2f}"]
+            for r in results]
+    verdicts = []
+    for r in results:
+        t = "meets" if r["time_ratio"] <= GOAL_TIME_RATIO else "misses"
+        m = "meets" if r["memory_ratio"] <= GOAL_MEMORY_RATIO else "misses"
+        verdicts.append(f"- {r['rows']} x {PREDICTORS}: time ratio {r['time_ratio']:.2f} "
+                        f"({t} <= {GOAL_TIME_RATIO}); in-process service / floor "
+                        f"{r['in_process_ratio']:.2f}; memory {r['memory_ratio']:.2f} x body "
+                        f"({m} <= {GOAL_MEMORY_RATIO})"
+                        + ("" if r["hwm_reset"] else " [VmHWM not resettable: first-peak "
+                           "only]"))
+    md = "\n".join([
+        "# Large requests: end-to-end HTTP fit vs the in-process floor",
+        "",
+        "Floor: orjson.loads + numpy.asarray + intercept column + one "
+        "scipy.linalg.qr(mode='economic'), in process. Served: `linfer serve --workers 2`, "
+        "POST /v1/fit (design_matrix JSON), medians over the repeats after one warm-up "
+        "request. Peak growth: worker VmHWM after - VmRSS before, per request.",
+        "",
+        table(["design", "body MB", "floor s", "in-process s", "HTTP s", "HTTP / floor",
+               "peak growth MB", "growth / body"], rows),
+        "",
+        *verdicts,
+    ])
+    print("\n" + md)
+    write_results("large_requests", {"cases": results, "goal_time_ratio": GOAL_TIME_RATIO,
+                                     "goal_memory_ratio": GOAL_MEMORY_RATIO}, md)
+
+
+if __name__ == "__main__":
+    main()
