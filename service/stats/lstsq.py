@@ -274,18 +274,17 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     bs[pivots] = bp
     a_ld = a.astype(np.longdouble)
     rinv = solve_triangular(r11, np.eye(k))
-    err_b, err_se = _error_bounds(ys_w, bs, a_ld, rinv, pivots, kappa, sigma_max)
+    cov = np.empty((k, k))
+    cov[np.ix_(pivots, pivots)] = rinv @ rinv.T
+    rw = _residual(ys_w, a_ld, bs)
+    err_b, err_se = _error_bounds(ys_w, bs, rw, cov, kappa, sigma_max)
     if err_b > max(err_se, 8 * EPS):
         bs, last_change, steps = _refine(a, a_ld, qr, tau, r11, pivots, ys_w, bs)
         if steps:
             # A converging refinement leaves an error below its last correction.
             err_b = min(err_b, max(10 * last_change, EPS))
-    rw = (ys_w.astype(np.longdouble) - a_ld @ bs.astype(np.longdouble))
-    rw = rw.astype(float)
+            rw = _residual(ys_w, a_ld, bs)
     residuals = rw if sw is None else rw / sw
-    cp = rinv @ rinv.T
-    cov = np.empty((k, k))
-    cov[np.ix_(pivots, pivots)] = cp
     rss = _fsum_sq(rw)
     fitted = ys - residuals
     if centered:
@@ -316,8 +315,13 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
                  digits=min(FULL_DIGITS, -math.log10(worst)))
 
 
-def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, a_ld: np.ndarray, rinv: np.ndarray,
-                  pivots: np.ndarray, kappa: float, sigma_max: float) -> tuple[float, float]:
+def _residual(y: np.ndarray, a_ld: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``y - A b`` accumulated in 80-bit arithmetic, rounded to double once."""
+    return (y.astype(np.longdouble) - a_ld @ b.astype(np.longdouble)).astype(float)
+
+
+def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarray,
+                  kappa: float, sigma_max: float) -> tuple[float, float]:
     """A priori relative error bounds of the estimates and of the standard errors.
 
     Component-wise first-order bound: a backward error dA of size eps |A| in A and dy
@@ -327,10 +331,6 @@ def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, a_ld: np.ndarray, rinv: np.n
     standard errors, from R^-1, carry about ``eps kappa``.
     """
     k = bs.shape[0]
-    cp = rinv @ rinv.T
-    cov = np.empty((k, k))
-    cov[np.ix_(pivots, pivots)] = cp
-    r = (ys_w.astype(np.longdouble) - a_ld @ bs.astype(np.longdouble)).astype(float)
     r_norm = float(np.linalg.norm(r))
     b_norm = float(np.linalg.norm(bs))
     y_norm = float(np.linalg.norm(ys_w))
@@ -357,7 +357,7 @@ def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
     """
     n, k = a.shape
     x = bs.copy()
-    r = (y.astype(np.longdouble) - a_ld @ x.astype(np.longdouble)).astype(float)
+    r = _residual(y, a_ld, x)
     last = math.inf
     taken = 0
     for _ in range(steps):
