@@ -15,10 +15,19 @@ for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 
 # prometheus_client's multiprocess mode: every worker writes its metrics here and
 # GET /metrics merges them. A fresh directory per server start.
+_metrics_dir_made = None
 if not os.environ.get("PROMETHEUS_MULTIPROC_DIR"):
     import tempfile
 
-    os.environ["PROMETHEUS_MULTIPROC_DIR"] = tempfile.mkdtemp(prefix="linfer-metrics-")
+    _metrics_dir_made = tempfile.mkdtemp(prefix="linfer-metrics-")
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = _metrics_dir_made
+
+
+def on_exit(server):
+    if _metrics_dir_made:
+        import shutil
+
+        shutil.rmtree(_metrics_dir_made, ignore_errors=True)
 
 
 def child_exit(server, worker):

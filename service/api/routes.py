@@ -34,7 +34,9 @@ __all__ = ["init_app"]
 bp = Blueprint("v1", __name__)
 _PREDICT = PredictRequestSchema()
 _TEST = TestRequestSchema()
-OPENAPI = Path(__file__).resolve().parents[2] / "openapi" / "linfer.yaml"
+# The contract ships inside the package (service/openapi.yaml, a link to the
+# repository's openapi/linfer.yaml that the wheel build resolves into a file).
+OPENAPI = Path(__file__).resolve().parents[1] / "openapi.yaml"
 
 
 def _read_body() -> bytes:
