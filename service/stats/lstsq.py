@@ -140,6 +140,20 @@ class LeastSquares:
     working_digits: float
     estimated_correct_digits: float
     projection: Projection | None = None
+    factor: tuple[np.ndarray, np.ndarray] | None = None
+
+    def project(self, v: np.ndarray) -> np.ndarray:
+        """The orthogonal projection of ``v`` on the span of the kept ``sqrt(W) X``.
+
+        ``Q Q' v`` from the Householder factor (``factor``: LAPACK's packed QR and tau).
+        """
+        if self.factor is None:
+            raise ValueError("this solution keeps no factor")
+        qr, tau = self.factor
+        r = self.rank
+        coordinates = _apply_qt(qr, tau, v)
+        coordinates[r:] = 0.0
+        return _apply_q(qr, tau, coordinates)
 
 
 def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
@@ -575,7 +589,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         right_singular_vectors=vt.T,
         rank_tolerance=rank_tolerance, condition_number=kappa, method=method,
         working_digits=core.working_digits, estimated_correct_digits=core.digits,
-        projection=projection)
+        projection=projection, factor=(qr, tau) if len(kept) else None)
 
 
 def _projection(qr: np.ndarray, pivots: np.ndarray, tau: np.ndarray, r: int,

@@ -56,11 +56,24 @@ def _weighted(solution: LeastSquares, weights: np.ndarray | None) -> np.ndarray:
     return solution.residuals if weights is None else solution.residuals * np.sqrt(weights)
 
 
-def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool) -> tuple[float, int, float]:
-    z = x[:, 1:] if intercept else x
-    z = z[:, np.ptp(z, axis=0) > 0] if z.size else z
+def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool,
+                   solution: LeastSquares | None = None) -> tuple[float, int, float]:
     n = e.shape[0]
     u = e * e
+    if solution is not None and solution.factor is not None and solution.rank > 1:
+        # With an intercept and no weights the auxiliary regressors are the model's own
+        # columns: the model's QR factor projects u onto them directly.
+        if not np.any(u != u[0]):
+            return math.nan, solution.rank - 1, math.nan
+        fitted = solution.project(u)
+        centred = u - u.mean()
+        ss_tot = float(centred @ centred)
+        spread = fitted - u.mean()
+        lm = n * float(spread @ spread) / ss_tot
+        rank = solution.rank - 1
+        return lm, rank, float(special.chdtrc(rank, lm))
+    z = x[:, 1:] if intercept else x
+    z = z[:, np.ptp(z, axis=0) > 0] if z.size else z
     if z.shape[1] == 0 or not np.any(u != u[0]):
         return math.nan, int(z.shape[1]), math.nan
     scale = np.max(np.abs(z), axis=0)
@@ -103,7 +116,8 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
             skew = kurt = jb = jb_p = math.nan
         ss = float(e @ e)
         dw = float(np.sum(np.diff(e) ** 2)) / ss if ss > 0 and n > 1 else math.nan
-    bp, bp_df, bp_p = _breusch_pagan(e, x, intercept)
+    own_columns = intercept and weights is None and solution.rank == x.shape[1]
+    bp, bp_df, bp_p = _breusch_pagan(e, x, intercept, solution if own_columns else None)
     return ResidualChecks(quantiles=quantiles, skewness=skew, kurtosis=kurt,
                           durbin_watson=dw, jarque_bera_statistic=jb,
                           jarque_bera_p_value=jb_p, breusch_pagan_statistic=bp,
