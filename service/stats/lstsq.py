@@ -191,6 +191,11 @@ def solve_triangular(r: np.ndarray, b: np.ndarray, trans: str = "N") -> np.ndarr
     return x
 
 
+def _norm(v: np.ndarray) -> float:
+    """The 2-norm of a vector in the solver's scaled units (no overflow there)."""
+    return math.sqrt(float(np.dot(v, v)))
+
+
 def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
     """``Q' v`` for the Householder factor held in ``qr`` and ``tau``."""
     c = np.asfortranarray(v.reshape(-1, 1))
@@ -308,9 +313,9 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     else:
         reg_ss = _fsum_sq(fitted, w)
         tot_ss = _fsum_sq(ys, w)
-    b_norm = float(np.linalg.norm(bs))
+    b_norm = _norm(bs)
     r_norm = math.sqrt(rss)
-    y_norm = float(np.linalg.norm(ys_w))
+    y_norm = _norm(ys_w)
     # The residual norm carries the rounding of y - X b in 80-bit arithmetic and
     # the second-order effect of the error in b; relative to a tiny residual
     # (a near-perfect fit) both grow, and the digits estimate says so.
@@ -345,9 +350,9 @@ def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarr
     standard errors, from R^-1, carry about ``eps kappa``.
     """
     k = bs.shape[0]
-    r_norm = float(np.linalg.norm(r))
-    b_norm = float(np.linalg.norm(bs))
-    y_norm = float(np.linalg.norm(ys_w))
+    r_norm = _norm(r)
+    b_norm = _norm(bs)
+    y_norm = _norm(ys_w)
     root = np.sqrt(np.diag(cov))
     row = np.linalg.norm(cov, axis=1)
     spread = EPS * math.sqrt(k) * (row * sigma_max * r_norm
@@ -536,7 +541,9 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     if len(kept):
         _, singular, vt = np.linalg.svd(unit)
         kappa = float(singular[0] / singular[-1])
-        sigma_max = float(np.linalg.norm(rk, 2))
+        # The Frobenius norm bounds |R|_2 from above (by at most sqrt(k)): the error
+        # bounds that use it stay on the safe side, without a second SVD.
+        sigma_max = math.sqrt(float(np.sum(rk * rk)))
     else:
         singular, vt, kappa, sigma_max = np.zeros(0), np.zeros((0, 0)), 1.0, 1.0
 
@@ -584,7 +591,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         residual_norm=float(np.ldexp(math.sqrt(core.residual_ss), e_y)),
         regression_norm=float(np.ldexp(math.sqrt(core.regression_ss), e_y)),
         total_norm=float(np.ldexp(math.sqrt(core.total_ss), e_y)),
-        response_norm=float(np.ldexp(np.linalg.norm(ys_w), e_y)),
+        response_norm=float(np.ldexp(_norm(ys_w), e_y)),
         rank=len(kept), estimable=estimable, aliases=aliases, singular_values=singular,
         right_singular_vectors=vt.T,
         rank_tolerance=rank_tolerance, condition_number=kappa, method=method,
