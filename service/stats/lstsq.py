@@ -6,9 +6,11 @@ The solver never forms X'X in double precision. Its steps:
    response are scaled by powers of two (exact in binary floating point), so that
    columns of 1e200 and 1e-200 meet on equal terms and nothing over- or underflows.
 2. Householder QR with column pivoting (LAPACK ``dgeqp3``). The numerical rank is the
-   number of diagonal entries of R with ``|R_ii| > max(n, k) * eps * |R_11|`` (the
-   tolerance LAPACK's and NumPy's rank routines use for singular values; Golub and
-   Van Loan, Matrix Computations, 4th ed., 5.4.2).
+   number of diagonal entries of R with ``|R_ii| > tol * |R_11|``: ``tol = max(n, k) eps``
+   (the tolerance LAPACK's and NumPy's rank routines use for singular values; Golub
+   and Van Loan, Matrix Computations, 4th ed., 5.4.2) for large problems, and
+   ``tol = 4 eps`` for problems small enough for the extended-precision path, where
+   only columns dependent up to the rounding of their entries count as aliased.
 3. Aliased columns are found in the order the caller posted them: a column is aliased
    when its distance from the span of the earlier kept columns is below the same
    tolerance; the linear relation that makes it so is returned.
@@ -38,6 +40,7 @@ __all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "solve"]
 
 EPS = float(np.finfo(float).eps)
 FULL_DIGITS = 15.9
+SMALL_RANK_TOLERANCE = 4 * EPS
 
 
 @dataclass(frozen=True)
@@ -516,7 +519,14 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
 
     qr, pivots, tau = _householder(a)
     diag = np.abs(np.diag(qr[:k, :k]))
-    rank_tolerance = max(n if rank_rows is None else rank_rows, k) * EPS
+    rows = n if rank_rows is None else rank_rows
+    if n * k * k <= extended_max_work:
+        # Small enough for the extended path: only columns that are dependent up to
+        # the rounding of their entries (|R_ii| within a few eps of |R_11|) are aliased,
+        # so designs with scaled condition numbers up to about 1e15 are still solved.
+        rank_tolerance = SMALL_RANK_TOLERANCE
+    else:
+        rank_tolerance = max(rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
     rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
     r_full = np.triu(qr[:k, :k])
