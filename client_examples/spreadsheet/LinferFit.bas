@@ -122,18 +122,17 @@ End Sub
 Public Function RangeToCsv(ByVal source As Range) As String
     Dim values As Variant
     Dim records() As String, fields() As String
-    Dim r As Long, c As Long, address As String
+    Dim r As Long, c As Long
 
     values = source.Value2   ' a 1-based 2-D array: the block has at least 2 x 2 cells
     ReDim records(1 To UBound(values, 1))
     ReDim fields(1 To UBound(values, 2))
     For r = 1 To UBound(values, 1)
         For c = 1 To UBound(values, 2)
-            address = source.Cells(r, c).Address(False, False)
             If r = 1 Then
-                fields(c) = CsvField(HeaderText(values(r, c), address))
+                fields(c) = CsvField(HeaderText(values(r, c), source, r, c))
             Else
-                fields(c) = CsvField(CellText(values(r, c), address))
+                fields(c) = CsvField(CellText(values(r, c), source, r, c))
             End If
         Next c
         records(r) = Join(fields, FIELD_SEPARATOR)
@@ -142,15 +141,17 @@ Public Function RangeToCsv(ByVal source As Range) As String
 End Function
 
 ' A header cell's text: a column name.
-Private Function HeaderText(ByVal v As Variant, ByVal address As String) As String
+Private Function HeaderText(ByVal v As Variant, ByVal source As Range, ByVal r As Long, _
+                            ByVal c As Long) As String
     Select Case VarType(v)
         Case vbString
             HeaderText = v
         Case vbEmpty
-            Err.Raise ERR_INPUT, TITLE, "Header cell " & address & " is empty: name every " & _
-                      "column of the selection."
+            Err.Raise ERR_INPUT, TITLE, "Header cell " & CellAddress(source, r, c) & _
+                      " is empty: name every column of the selection."
         Case vbError
-            Err.Raise ERR_INPUT, TITLE, "Header cell " & address & " holds an error value."
+            Err.Raise ERR_INPUT, TITLE, "Header cell " & CellAddress(source, r, c) & _
+                      " holds an error value."
         Case vbBoolean
             If v Then HeaderText = "TRUE" Else HeaderText = "FALSE"
         Case Else
@@ -159,7 +160,8 @@ Private Function HeaderText(ByVal v As Variant, ByVal address As String) As Stri
 End Function
 
 ' A data cell's text, from its Value2.
-Private Function CellText(ByVal v As Variant, ByVal address As String) As String
+Private Function CellText(ByVal v As Variant, ByVal source As Range, ByVal r As Long, _
+                          ByVal c As Long) As String
     Select Case VarType(v)
         Case vbEmpty
             CellText = ""
@@ -168,14 +170,20 @@ Private Function CellText(ByVal v As Variant, ByVal address As String) As String
         Case vbBoolean
             If v Then CellText = "TRUE" Else CellText = "FALSE"
         Case vbError
-            Err.Raise ERR_INPUT, TITLE, "Cell " & address & " holds an error value; fix " & _
-                      "it, or clear the cell to send a missing value."
+            Err.Raise ERR_INPUT, TITLE, "Cell " & CellAddress(source, r, c) & " holds an " & _
+                      "error value; fix it, or clear the cell to send a missing value."
         Case vbDouble, vbSingle, vbCurrency, vbDate, vbInteger, vbLong, vbDecimal, vbByte
             CellText = NumberText(CDbl(v))
         Case Else
-            Err.Raise ERR_INPUT, TITLE, "Cell " & address & " holds a value of an " & _
-                      "unexpected kind (VarType " & VarType(v) & ")."
+            Err.Raise ERR_INPUT, TITLE, "Cell " & CellAddress(source, r, c) & " holds a " & _
+                      "value of an unexpected kind (VarType " & VarType(v) & ")."
     End Select
+End Function
+
+' The address of a cell of the selection (looked up only for a message: it is a call
+' into the spreadsheet, slow when made for every cell).
+Private Function CellAddress(ByVal source As Range, ByVal r As Long, ByVal c As Long) As String
+    CellAddress = source.Cells(r, c).Address(False, False)
 End Function
 
 ' 15 significant digits in scientific notation, with "." as the decimal point: Format$
@@ -371,8 +379,10 @@ Private Function IsPlainNumber(ByVal s As String) As Boolean
         If ch Like "[0-9]" Then
             If seenE Then expDigits = expDigits + 1 Else digits = digits + 1
         ElseIf ch = "-" Or ch = "+" Then
-            If Not (i = 1 Or (seenE And (Mid$(s, i - 1, 1) = "e" Or Mid$(s, i - 1, 1) = "E"))) Then
-                Exit Function
+            ' a sign first, or right after the E (VBA does not short-circuit: no Mid$ at 0)
+            If i > 1 Then
+                If Not seenE Then Exit Function
+                If UCase$(Mid$(s, i - 1, 1)) <> "E" Then Exit Function
             End If
         ElseIf ch = "." Then
             If seenDot Or seenE Then Exit Function

@@ -57,6 +57,8 @@ CSV_MEDIA_TYPE = "text/csv"
 # fast path (pandas would read "true" as 1.0 and "inf" as infinity: they hold others).
 _NUMERIC_BYTES = b"0123456789+-.eE \t,\r\n\""
 _BOM = b"\xef\xbb\xbf"
+# pandas reads "0E 0" as a number; the careful path, rightly, does not.
+_SPACED_EXPONENT = re.compile(rb"[eE][ \t]|[ \t][eE]|[0-9.][ \t]+[0-9+\-.]")
 _MISSING_MARKERS = {"na", "n/a", "#n/a", "nan", "null", "none", "-", ".", "?"}
 _QUOTED_MAX = 40
 
@@ -149,7 +151,7 @@ def _fast(raw: bytes, k: int) -> np.ndarray | None:
     if end < 0 or b'"' in raw[:end] or not raw[:end].strip():
         return None
     data = raw[end + 1:]
-    if data.translate(None, _NUMERIC_BYTES):
+    if data.translate(None, _NUMERIC_BYTES) or _SPACED_EXPONENT.search(data):
         return None
     try:
         frame = pd.read_csv(io.BytesIO(data), header=None, engine="c", dtype=float,

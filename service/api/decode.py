@@ -361,7 +361,11 @@ def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
     if INTERCEPT in seen and seen[INTERCEPT] != 0:
         raise invalid([FieldError(pointer("summary", "column_names", seen[INTERCEPT]),
                                   "the intercept column (a column of ones) must come first")])
-    _check_limits(s["n_observations"], len(names), "/summary", settings)
+    if len(names) > settings.max_columns:
+        # n_observations is not a limit: the rows never travel, which is the point.
+        raise invalid([FieldError("/summary/column_names", f"has {len(names)} columns, "
+                                  f"more than the limit of {settings.max_columns} "
+                                  "(LINFER_MAX_COLUMNS)")])
     if data.get("covariance", "classical") != "classical":
         raise invalid([FieldError("/covariance", "robust covariances need the rows; a "
                                   "summary supports only classical")])

@@ -38,6 +38,8 @@ def encode_model(model: ModelSummary) -> dict[str, Any]:
         "aliased": [{"column": name, "relation": [{"column": c, "multiplier": number(m)}
                                                   for c, m in relation]}
                     for name, relation in model.aliased],
+        "covariance_root": (None if model.covariance_root is None else
+                            [[number(v) for v in row] for row in model.covariance_root]),
     }
 
 
@@ -117,10 +119,37 @@ def decode_model(m: dict[str, Any], strict: bool) -> ModelSummary:
                             "must name an estimable coefficient")
         aliased.append((a["column"], tuple((t["column"], t["multiplier"])
                                            for t in a["relation"])))
+    root = _root(m.get("covariance_root"), cov, missing, strict)
     return ModelSummary(names=tuple(names), intercept=m["intercept"], estimates=estimates,
                         covariance=cov, covariance_kind=m["covariance_kind"],
                         residual_variance=float(s2), residual_df=df,
-                        n_observations=m["n_observations"], aliased=tuple(aliased))
+                        n_observations=m["n_observations"], aliased=tuple(aliased),
+                        covariance_root=root)
+
+
+def _root(value: Any, cov: np.ndarray, missing: np.ndarray, strict: bool) -> np.ndarray | None:
+    """The optional covariance_root G: k rows (null where the estimate is), ``G G' = V``."""
+    if value is None:
+        return None
+    g = as_matrix(value, ("model", "covariance_root"), strict)
+    k = cov.shape[0]
+    if g.shape[0] != k or g.shape[1] > k:
+        raise _fail(("covariance_root",), f"is {g.shape[0]} x {g.shape[1]}; it must have "
+                    f"{k} rows and at most {k} columns")
+    rows_null = np.all(np.isnan(g), axis=1)
+    if np.all(rows_null):
+        return None
+    if np.any(rows_null != missing) or np.any(np.isnan(g[~missing])):
+        raise _fail(("covariance_root",), "must be null exactly in the rows whose estimate "
+                    "is null")
+    est = ~missing
+    v = cov[np.ix_(est, est)]
+    product = g[est] @ g[est].T
+    scale = float(np.max(np.abs(v))) if v.size else 0.0
+    if scale > 0 and float(np.max(np.abs(product - v))) > 1e-6 * scale:
+        raise _fail(("covariance_root",), "does not reproduce the covariance "
+                    "(covariance_root times its transpose must equal covariance)")
+    return g
 
 
 def decode_new_rows(data: dict[str, Any], body: dict[str, Any], model: ModelSummary,

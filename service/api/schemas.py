@@ -168,6 +168,7 @@ class ModelSchema(Schema):
     residual_df = Count(required=True)
     n_observations = Count(required=True)
     aliased = fields.List(fields.Nested(AliasSchema), load_default=list)
+    covariance_root = fields.Raw(allow_none=True, load_default=None)
 
 
 class SummarySchema(Schema):

@@ -34,11 +34,16 @@ KINDS = ("classical", "hc0", "hc1", "hc2", "hc3")
 
 @dataclass(frozen=True)
 class CovarianceEstimate:
-    """``matrix`` (k x k, NaN for aliased columns) and ``standard_errors`` (overflow-safe)."""
+    """``matrix`` (k x k, NaN for aliased columns) and ``standard_errors`` (overflow-safe).
+
+    ``root`` (classical only): G with ``G G' = matrix``, for tests and predictions that
+    keep their digits on ill-conditioned designs; None for the robust kinds.
+    """
 
     kind: str
     matrix: np.ndarray
     standard_errors: np.ndarray
+    root: np.ndarray | None = None
 
 
 def estimate_covariance(solution: LeastSquares, kind: str, n: int,
@@ -55,7 +60,8 @@ def estimate_covariance(solution: LeastSquares, kind: str, n: int,
             s = 0.0 if perfect_fit and df > 0 else sigma
             matrix = s * s * solution.covariance_factor
             se = s * solution.root_diagonal
-        return CovarianceEstimate(kind, matrix, se)
+            root = s * solution.covariance_root if kind == "classical" else None
+        return CovarianceEstimate(kind, matrix, se, root)
     proj = solution.projection
     if proj is None:
         raise ValueError("a robust covariance needs the solution's projection")

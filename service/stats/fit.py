@@ -235,12 +235,12 @@ def fit_summary(summary: Summary, options: FitOptions) -> FitResult:
     result = _complete(design, solution, options, summary.n_observations, spread, 0.0,
                        rows=False)
     if summary.kind == "cross_products":
-        lost = 2 * math.log10(max(solution.condition_number, 1.0))
+        left = round(solution.estimated_correct_digits, 2)  # as numerics reports it
         note = Notice("cross_products_precision", (
-            f"Cross products square the condition number ({solution.condition_number:.3g}): "
-            f"about {lost:.1f} of the 16 digits of double precision are lost before the fit, "
-            f"leaving about {solution.estimated_correct_digits:.1f}. Send the triangular "
-            "summary (R from a QR of [X y]) to keep them."))
+            "Cross products square the condition number of the data: about "
+            f"{15.95 - left:.1f} of the 16 digits of double precision are lost before the "
+            f"fit, leaving about {left:.1f}. Send the triangular summary (R from a QR of "
+            "[X y]) to keep them."))
         result = dataclasses.replace(result, notices=result.notices + (note,))
     return result
 
@@ -286,7 +286,8 @@ def model_summary(design: Design, solution: LeastSquares, result: Inference) -> 
         names=names, intercept=design.intercept, estimates=solution.coefficients,
         covariance=result.covariance.matrix, covariance_kind=result.covariance.kind,
         residual_variance=sigma * sigma, residual_df=result.residual_df,
-        n_observations=result.n_observations, aliased=aliased)
+        n_observations=result.n_observations, aliased=aliased,
+        covariance_root=result.covariance.root)
 
 
 def _robust_overall_test(result: Inference, model: ModelSummary, design: Design) -> Inference:

@@ -1,7 +1,8 @@
 """Joint tests of linear restrictions ``R beta = q`` (F and Wald tests).
 
 For ``m`` restrictions with ``d = R b - q`` and ``V`` the covariance of the estimates,
-``F = d' (R V R')^-1 d / m``, referred to ``F(m, n - p)``. With the classical
+``F = d' (R V R')^-1 d / m``, referred to ``F(m, n - p)``; for a model fitted here,
+through a factor ``G G' = V`` so that the design's condition number is not squared. With the classical
 covariance ``V = s^2 (X'WX)^-1`` this is the partial F test, and the restricted
 residual sum of squares is ``RSS_r = RSS + m F s^2`` (Seber and Lee, Linear
 Regression Analysis, 2nd ed., 2003, theorem 4.1); with a heteroskedasticity-
@@ -103,6 +104,21 @@ def _check_independent(rmat: np.ndarray, q: np.ndarray, index: int) -> None:
         basis = np.column_stack([basis, v / np.linalg.norm(v)])
 
 
+def _through_root(m: np.ndarray, d: np.ndarray, df: int) -> float:
+    """``d' (M M')^-1 d`` from the triangular factor of ``M'`` (M = R G, ``G G' = V``).
+
+    Forming R V R' squares the condition of the design; through G it is not squared.
+    """
+    if df <= 0 or not np.all(np.isfinite(m)) or not np.any(m):
+        return math.nan
+    t = np.linalg.qr(m.T, mode="r")
+    diag = np.abs(np.diag(t))
+    if not np.all(diag > 0):
+        return math.nan
+    z = linalg.solve_triangular(t, d, trans="T")
+    return float(z @ z)
+
+
 def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
                     residual_sum_of_squares: float | None = None) -> list[HypothesisResult]:
     """Test each set of restrictions against ``model``; results in order.
@@ -133,6 +149,11 @@ def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
     df = model.residual_df
     classical = model.covariance_kind == "classical"
     s2 = model.residual_variance
+    root = None
+    if model.covariance_root is not None:
+        root = model.covariance_root[estimable]
+        if not np.all(np.isfinite(root)):
+            root = None
     results = []
     for h, rmat, q in prepared:
         r = rmat[:, estimable]
@@ -140,13 +161,16 @@ def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
         d = r @ b - q
         stat = math.nan
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            middle = r @ v @ r.T
-            if df > 0 and np.all(np.isfinite(middle)) and np.any(middle):
-                try:
-                    factor = linalg.cho_factor(middle)
-                    stat = float(d @ linalg.cho_solve(factor, d)) / m
-                except linalg.LinAlgError:
-                    stat = math.nan
+            if root is not None:
+                stat = _through_root(r @ root, d, df) / m
+            else:
+                middle = r @ v @ r.T
+                if df > 0 and np.all(np.isfinite(middle)) and np.any(middle):
+                    try:
+                        factor = linalg.cho_factor(middle)
+                        stat = float(d @ linalg.cho_solve(factor, d)) / m
+                    except linalg.LinAlgError:
+                        stat = math.nan
             p = float(f_upper_p(stat, m, df)) if math.isfinite(stat) else math.nan
         rss = residual_sum_of_squares if classical and residual_sum_of_squares is not None \
             else math.nan

@@ -96,6 +96,10 @@ class LeastSquares:
     covariance_factor : (k, k) array
         ``(X'WX)^-1`` over the kept columns (NaN rows and columns for aliased ones);
         entries that overflow double precision are infinite.
+    covariance_root : (k, rank) array
+        G with ``G G' = (X'WX)^-1`` over the kept columns (NaN rows for aliased ones):
+        from R^-1 (or the Cholesky factor of the extended-precision inverse). Tests and
+        predictions through G lose digits as kappa, through the covariance as kappa^2.
     fitted, residuals : (n,) arrays
         ``X b`` and ``y - X b`` (unweighted).
     residual_norm, regression_norm, total_norm : float
@@ -126,6 +130,7 @@ class LeastSquares:
     coefficients: np.ndarray
     root_diagonal: np.ndarray
     covariance_factor: np.ndarray
+    covariance_root: np.ndarray
     fitted: np.ndarray
     residuals: np.ndarray
     residual_norm: float
@@ -277,6 +282,7 @@ class _Core:
 
     coefficients: np.ndarray  # scaled, kept columns, in kept order
     covariance: np.ndarray  # scaled (A'A)^-1 over kept columns
+    root: np.ndarray  # G with G G' = covariance (kept order)
     residuals: np.ndarray  # scaled, unweighted
     residual_ss: float
     regression_ss: float
@@ -332,7 +338,10 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     else:
         err_sigma = 1.0 if y_norm > 0 else 0.0
     worst = max(err_b, err_se, err_sigma, EPS / 2)
-    return _Core(coefficients=bs, covariance=cov, residuals=residuals, residual_ss=rss,
+    root = np.empty((k, k))
+    root[pivots] = rinv
+    return _Core(coefficients=bs, covariance=cov, root=root, residuals=residuals,
+                 residual_ss=rss,
                  regression_ss=reg_ss, total_ss=tot_ss, working_digits=15.95,
                  digits=min(FULL_DIGITS, -math.log10(worst)))
 
@@ -450,7 +459,10 @@ def _extended_path(columns: Callable[[], list[list[mpmath.mpf]]], ys: np.ndarray
         coefficients = np.array([float(v) for v in bl])
         covariance = np.array([[float(ginv[i, j]) for j in range(k)] for i in range(k)])
         residuals = np.array([float(v) for v in resid])
-        core = _Core(coefficients=coefficients, covariance=covariance, residuals=residuals,
+        chol = mpmath.cholesky(ginv)
+        root = np.array([[float(chol[i, j]) for j in range(k)] for i in range(k)])
+        core = _Core(coefficients=coefficients, covariance=covariance, root=root,
+                     residuals=residuals,
                      residual_ss=float(rss), regression_ss=float(reg), total_ss=float(tot),
                      working_digits=float(dps),
                      digits=min(FULL_DIGITS, dps - 2 * math.log10(max(kappa, 1.0)) - 2))
@@ -461,7 +473,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
           centered: bool, drop_aliased: bool = False, extended_max_work: int = 200_000,
           extended_below_digits: float = 13.5, want_projection: bool = False,
           exact_columns: Callable[[list[int], np.ndarray], list[list[mpmath.mpf]]] | None = None,
-          rank_rows: int | None = None) -> LeastSquares:
+          rank_rows: int | None = None, rank_tolerance: float | None = None) -> LeastSquares:
     """Solve the weighted least-squares problem ``min sum_i w_i (y_i - x_i b)^2``.
 
     Parameters
@@ -489,6 +501,9 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     rank_rows : int or None
         The number of observations behind ``x`` when ``x`` is a factor of the data (a
         summary) rather than the rows; it sets the rank tolerance. Default: n.
+    rank_tolerance : float or None
+        Overrides the tolerance on ``|R_ii| / |R_11|`` (for factors whose own rounding
+        is known to be larger, such as one made from cross products).
     want_projection : bool
         Also return the :class:`Projection` (an n x rank array: ask only when robust
         covariances or per-row influence are wanted).
@@ -520,13 +535,12 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     qr, pivots, tau = _householder(a)
     diag = np.abs(np.diag(qr[:k, :k]))
     rows = n if rank_rows is None else rank_rows
-    if n * k * k <= extended_max_work:
+    if rank_tolerance is None:
         # Small enough for the extended path: only columns that are dependent up to
         # the rounding of their entries (|R_ii| within a few eps of |R_11|) are aliased,
         # so designs with scaled condition numbers up to about 1e15 are still solved.
-        rank_tolerance = SMALL_RANK_TOLERANCE
-    else:
-        rank_tolerance = max(rows, k) * EPS
+        small = rows * k * k <= extended_max_work
+        rank_tolerance = SMALL_RANK_TOLERANCE if small else max(rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
     rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
     r_full = np.triu(qr[:k, :k])
@@ -576,7 +590,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
             method = "extended_precision"
     else:
         method = "householder_qr"
-        core = _Core(np.zeros(0), np.zeros((0, 0)), ys.copy(), _fsum_sq(ys, weights), 0.0,
+        core = _Core(np.zeros(0), np.zeros((0, 0)), np.zeros((0, 0)), ys.copy(),
+                     _fsum_sq(ys, weights), 0.0,
                      _fsum_sq(ys, weights), 15.95, FULL_DIGITS)
 
     kept_idx = np.array(kept, dtype=int)
@@ -592,12 +607,15 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         root_diagonal[kept_idx] = np.ldexp(np.sqrt(np.diag(core.covariance)), -e_kept)
         covariance[np.ix_(kept_idx, kept_idx)] = np.ldexp(
             core.covariance, -(e_kept[:, None] + e_kept[None, :]))
+        covariance_root = np.full((k, len(kept)), np.nan)
+        covariance_root[kept_idx] = np.ldexp(core.root, -e_kept[:, None])
         residuals = np.ldexp(core.residuals, e_y)
     estimable = np.zeros(k, dtype=bool)
     estimable[kept_idx] = True
     return LeastSquares(
         coefficients=coefficients, root_diagonal=root_diagonal,
-        covariance_factor=covariance, fitted=y - residuals, residuals=residuals,
+        covariance_factor=covariance, covariance_root=covariance_root,
+        fitted=y - residuals, residuals=residuals,
         residual_norm=float(np.ldexp(math.sqrt(core.residual_ss), e_y)),
         regression_norm=float(np.ldexp(math.sqrt(core.regression_ss), e_y)),
         total_norm=float(np.ldexp(math.sqrt(core.total_ss), e_y)),

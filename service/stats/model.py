@@ -28,6 +28,9 @@ class ModelSummary:
     aliased : per aliased column, its name and the relation ``((name, multiplier), ...)``
         that ties it to the kept columns
     version : the summary format's version
+    covariance_root : (k, r) G with ``G G' = covariance`` when the model comes from a
+        fit in this process (never on the wire); tests and predictions use it to keep
+        their digits on ill-conditioned designs
     """
 
     names: tuple[str, ...]
@@ -40,6 +43,7 @@ class ModelSummary:
     n_observations: int
     aliased: tuple[tuple[str, tuple[tuple[str, float], ...]], ...] = ()
     version: int = MODEL_VERSION
+    covariance_root: np.ndarray | None = None
 
     @property
     def estimable(self) -> np.ndarray:

@@ -76,8 +76,14 @@ def predict(model: ModelSummary, x: np.ndarray, levels: tuple[float, ...], kind:
     ok = _estimable_rows(model, x)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         mean = xe @ b
-        quad = np.einsum("ij,jk,ik->i", xe, v, xe)
-        se = np.sqrt(np.maximum(quad, 0.0))
+        root = None if model.covariance_root is None else model.covariance_root[est]
+        if root is not None and np.all(np.isfinite(root)):
+            # |x'G| with G G' = V: no cancellation in x'Vx on ill-conditioned designs.
+            g = xe @ root
+            se = np.sqrt(np.einsum("ij,ij->i", g, g))
+        else:
+            quad = np.einsum("ij,jk,ik->i", xe, v, xe)
+            se = np.sqrt(np.maximum(quad, 0.0))
         if kind == "observation":
             w = np.ones(x.shape[0]) if weights is None else weights
             spread = np.sqrt(model.residual_variance / w + se * se)

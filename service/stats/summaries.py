@@ -37,6 +37,11 @@ from .lstsq import EPS, LeastSquares, solve
 __all__ = ["Summary", "SummaryError", "solve_summary", "TRIANGULAR_TOLERANCE"]
 
 TRIANGULAR_TOLERANCE = 1e-12
+# Eigenvalues of the (equilibrated) augmented cross products below this many
+# (p + 1) eps lambda_max are rounding, not data: cross products of exactly dependent
+# columns leave eigenvalues of that size, and a design whose condition number exceeds
+# about 1 / sqrt(100 eps), 7e6, cannot be told from one in this form.
+ZERO_EIGENVALUE = 100
 SYMMETRY_TOLERANCE = 1e-10
 
 
@@ -77,6 +82,12 @@ def _factor(summary: Summary) -> np.ndarray:
             i, j = np.unravel_index(int(np.argmax(np.abs(below))), below.shape)
             raise SummaryError("must be zero: r_factor is upper triangular", "r_factor",
                                (int(i), int(j)))
+        if summary.intercept:
+            root_n = math.sqrt(summary.n_observations)
+            if not abs(abs(r[0, 0]) - root_n) <= 1e-8 * root_n:
+                raise SummaryError(f"is {r[0, 0]:.10g}; for the intercept (a column of "
+                                   f"ones, first) it must be +-sqrt(n_observations) = "
+                                   f"+-{root_n:.10g}", "r_factor", (0, 0))
         return np.triu(r)
     xtx, xty, yty = summary.xtx, summary.xty, summary.yty
     if xtx.shape != (p, p):
@@ -112,8 +123,20 @@ def _factor(summary: Summary) -> np.ndarray:
         raise SummaryError("with xty and yty is not positive semi-definite (smallest "
                            f"eigenvalue {lam[0]:.3g} of {top:.3g}): no data have these "
                            "cross products", "xtx")
-    f = np.sqrt(np.clip(lam, 0.0, None))[:, None] * v.T
+    # Eigenvalues within rounding of zero are zero: their square roots would turn
+    # noise of eps * lambda_max into singular values of sqrt(eps) * sigma_max and hide
+    # an exact dependency from the rank test.
+    lam = np.where(lam > ZERO_EIGENVALUE * (p + 1) * EPS * top, lam, 0.0)
+    f = np.sqrt(lam)[:, None] * v.T
     return np.ldexp(f, e[None, :])
+
+
+def _augmented_condition(summary: Summary, f: np.ndarray) -> float:
+    """Condition number of [X y] with columns scaled to unit length (from F)."""
+    norms = np.sqrt(np.sum(f * f, axis=0))
+    unit = f / np.where(norms > 0, norms, 1.0)
+    s = np.linalg.svd(unit, compute_uv=False)
+    return float(s[0] / s[-1]) if s[-1] > 0 else math.inf
 
 
 def _spread(summary: Summary, f: np.ndarray) -> np.ndarray | None:
@@ -147,7 +170,11 @@ def solve_summary(summary: Summary, *, drop_aliased: bool, extended_max_work: in
     sol = solve(fx, fy, centered=False, drop_aliased=drop_aliased,
                 extended_max_work=extended_max_work,
                 extended_below_digits=extended_below_digits,
-                rank_rows=summary.n_observations)
+                rank_rows=summary.n_observations,
+                # The eigendecomposition leaves directions it zeroed at about (p + 1)
+                # eps, far below the sqrt(100 (p + 1) eps) of any direction it kept.
+                rank_tolerance=(1000 * (p + 1) * EPS if summary.kind == "cross_products"
+                                else None))
     fitted = sol.fitted
     if summary.kind == "triangular":
         if summary.intercept:
@@ -165,8 +192,9 @@ def solve_summary(summary: Summary, *, drop_aliased: bool, extended_max_work: in
         tss = max(tss, 0.0)
         total = math.sqrt(tss)
         regression = math.sqrt(max(tss - rss, 0.0))
-        # The cross products already hold the problem to about eps kappa^2.
-        lost = 2 * math.log10(max(sol.condition_number, 1.0))
+        # The cross products hold the problem to about eps kappa^2, kappa the condition
+        # number of the augmented [X y] (worse than X's whenever the fit is good).
+        lost = 2 * math.log10(max(_augmented_condition(summary, f), 1.0))
         digits = min(sol.estimated_correct_digits, max(0.0, 15.95 - lost))
     sol = dataclasses.replace(
         sol, fitted=np.zeros(0), residuals=np.zeros(0), regression_norm=regression,

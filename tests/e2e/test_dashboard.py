@@ -354,6 +354,8 @@ def test_dashboard_without_cors_shows_an_error(browser: Any, static_server: Stat
     assert not browser.find_elements(By.CSS_SELECTOR, "#coef-svg line.ci")
     assert not browser.find_elements(By.CSS_SELECTOR, "#band-svg path.band")
     assert browser.find_element(By.ID, "band-button").get_attribute("disabled") is not None
+    RESULTS.mkdir(parents=True, exist_ok=True)
+    assert browser.save_screenshot(str(RESULTS / "dashboard-cors-off.png"))
 
 
 def test_dashboard_shows_the_problem_of_an_error_answer(browser: Any,
@@ -376,9 +378,22 @@ def test_dashboard_shows_the_problem_of_an_error_answer(browser: Any,
     browser.execute_script("window.linferDashboard.model.version = 99;"
                            "document.getElementById('t-to').value = '30';")
     browser.find_element(By.ID, "band-button").click()
-    wait_for(browser, "the refused band",
-             lambda d: d.find_element(By.ID, "band-svg").get_attribute("data-state") == "error")
+    wait_for(browser, "the refused band's problem",
+             lambda d: d.find_element(By.ID, "error").text.startswith("422 "))
+    assert browser.find_element(By.ID, "band-svg").get_attribute("data-state") == "error"
     message = browser.find_element(By.ID, "error").text
     assert message.startswith("422 "), message
     assert "/model/version" in message, message
     assert not browser.find_elements(By.CSS_SELECTOR, "#band-svg path.band")
+
+
+def test_dashboard_without_a_server_says_so(browser: Any, static_server: StaticServer) -> None:
+    """Nothing listens at the address: the page says it could not reach linfer there."""
+    from selenium.webdriver.common.by import By
+
+    nowhere = f"http://{HOST}:{free_port()}"
+    open_page(browser, static_server, nowhere)
+    assert wait_for(browser, "the page to give up", settled) == "error"
+    message = browser.find_element(By.ID, "error").text
+    assert message.startswith(f"Could not reach linfer at {nowhere}"), message
+    assert not browser.find_elements(By.CSS_SELECTOR, "#coef-svg g.coef")

@@ -167,3 +167,23 @@ def test_too_many_hypotheses_on_a_model_are_a_422_problem(limited: str, model: d
     doc = {"model": model, "hypotheses": [_hypothesis(["x1"])] * 3}
     _assert_limit(_send(limited, doc, "/v1/test"), 422, "LINFER_MAX_HYPOTHESES",
                   "/hypotheses")
+
+
+# --- the CSV body (text/csv, options in the query) --------------------------------------
+
+def _csv(rows: int, predictors: int) -> bytes:
+    header = ",".join([f"c{j}" for j in range(predictors)] + ["y"])
+    lines = [",".join(str((i * (j + 2)) % 11 + 0.5 * j) for j in range(predictors + 1))
+             for i in range(rows)]
+    return ("\n".join([header, *lines]) + "\n").encode()
+
+
+@pytest.mark.parametrize("body, status, variable, where", [
+    (_csv(51, 1), 422, "LINFER_MAX_ROWS", "/table"),
+    (_csv(10, 6), 422, "LINFER_MAX_COLUMNS", "/table"),
+    (_csv(4000, 1), 413, "LINFER_MAX_BODY_BYTES", None),  # ~32 kB
+])
+def test_csv_body_over_a_limit_is_a_problem(limited: str, body: bytes, status: int,
+                                            variable: str, where: str | None) -> None:
+    reply = post(limited, "/v1/fit?response_column=y", body, content_type="text/csv")
+    _assert_limit(reply, status, variable, where)

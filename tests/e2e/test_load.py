@@ -15,12 +15,11 @@ from __future__ import annotations
 import contextlib
 import http.client
 import json
-import os
 import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Mapping
+from typing import Any, Callable
 from urllib.parse import urlsplit
 
 import numpy as np

@@ -1,4 +1,4 @@
-"""The spreadsheet macro (client_examples/spreadsheet/LinferFit.bas), replayed against a real server.
+"""The spreadsheet macro (client_examples/spreadsheet/LinferFit.bas), replayed for real.
 
 No spreadsheet application runs here, so the macro itself is not run. Instead this
 module builds, in Python, the exact request the macro builds from a given range, step
@@ -24,7 +24,6 @@ import re
 import urllib.error
 import urllib.request
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import pytest
@@ -70,8 +69,9 @@ SOURCE, CONST = read_macro()
 MIRRORED_LINES = [
     # reading the range: Value2, the header row apart, fields joined into records
     "values = source.Value2",
-    "fields(c) = CsvField(HeaderText(values(r, c), address))",
-    "fields(c) = CsvField(CellText(values(r, c), address))",
+    "fields(c) = CsvField(HeaderText(values(r, c), source, r, c))",
+    "fields(c) = CsvField(CellText(values(r, c), source, r, c))",
+    "CellAddress = source.Cells(r, c).Address(False, False)",
     "records(r) = Join(fields, FIELD_SEPARATOR)",
     "RangeToCsv = Join(records, RECORD_SEPARATOR) & RECORD_SEPARATOR",
     # cells
@@ -568,7 +568,9 @@ def test_macro_shows_the_problem_of_a_refusal(served: Server) -> None:
     expected = f"linfer answered 422 {problem['title']}.\n\n{problem['detail']}" + "".join(
         f"\n  at {e['pointer'] or '/'}: {e['message']}" for e in problem["errors"][:10])
     assert shown == expected
-    assert f"\n  at /table/{TEMP}/3: " in shown and "'n/a' is not a number" in shown
+    # CSV line 6, not 5: the note of row 2 is a quoted field holding a line break.
+    assert f"\n  at /table/{TEMP}/3: row 3 (CSV line 6), column {TEMP}: 'n/a' is not a number" \
+        in shown, shown
 
     wrong = post_csv(build_fit_url(served.base_url, "kWh", "", ""), range_to_csv(demo_range()))
     assert wrong.status == 422

@@ -26,7 +26,6 @@ schemathesis``). A failure report from schemathesis gives the exact request
 from __future__ import annotations
 
 import json
-from pathlib import Path
 from typing import Iterator
 
 import pytest
@@ -35,11 +34,10 @@ schemathesis = pytest.importorskip("schemathesis", reason="pip install schemathe
 
 from hypothesis import HealthCheck, settings  # noqa: E402  (after the import check)
 
-from e2e._server import START_ATTEMPTS, Server, start_once  # noqa: E402
+from e2e._server import REPO, START_ATTEMPTS, Server, start_once  # noqa: E402
 
 pytestmark = pytest.mark.e2e
 
-REPO = Path(__file__).resolve().parents[2]
 CONTRACT = REPO / "openapi" / "linfer.yaml"
 OPERATIONS = ["/v1/fit", "/v1/predict", "/v1/test"]
 MAX_EXAMPLES = 60
