@@ -39,7 +39,7 @@ class Settings:
         Most sets of restrictions in one request (LINFER_MAX_HYPOTHESES); each set
         holds at most ``max_columns`` restrictions.
     extended_max_work
-        Largest rows x columns^2 for which the extended-precision path may be
+        Largest rows x (columns + 2)^2 for which the extended-precision path may be
         taken (LINFER_EXTENDED_MAX_WORK); larger problems stay in double
         precision and say how many digits they can vouch for.
     extended_below_digits

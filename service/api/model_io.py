@@ -47,10 +47,13 @@ def _fail(where: tuple[str | int, ...], message: str):
     return invalid([FieldError(pointer("model", *where), message)])
 
 
-def decode_model(m: dict[str, Any], strict: bool) -> ModelSummary:
+def decode_model(m: dict[str, Any], strict: bool, settings: Settings) -> ModelSummary:
     """A validated :class:`ModelSummary` from the loaded ``model`` envelope."""
     names = m["names"]
     k = len(names)
+    if k > settings.max_columns:
+        raise _fail(("names",), f"has {k} coefficients, more than the limit of "
+                    f"{settings.max_columns} (LINFER_MAX_COLUMNS)")
     seen: dict[str, int] = {}
     for j, name in enumerate(names):
         if name in seen:

@@ -163,7 +163,7 @@ def _model_from(data: dict, body: dict, settings: Settings,
                 hypotheses: bool = False) -> tuple[ModelSummary, FitResult | None]:
     """The model summary sent, or the one fitted from the data sent."""
     if "model" in data:
-        return decode_model(data["model"], data["_strict"]), None
+        return decode_model(data["model"], data["_strict"], settings), None
     options = fit_options({**data, "hypotheses": []} if hypotheses else data, settings)
     design, where = decode_design(data, body, settings)
     result = _run_fit(design, options, where)

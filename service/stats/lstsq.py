@@ -36,7 +36,7 @@ import mpmath
 import numpy as np
 from scipy.linalg import lapack
 
-__all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "solve"]
+__all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "extended_work", "solve"]
 
 EPS = float(np.finfo(float).eps)
 FULL_DIGITS = 15.9
@@ -162,6 +162,16 @@ class LeastSquares:
         coordinates = _apply_qt(qr, tau, v)
         coordinates[r:] = 0.0
         return _apply_q(qr, tau, coordinates)
+
+
+def extended_work(n: int, k: int) -> int:
+    """The cost measure of the extended-precision path: ``n (k + 2)^2``.
+
+    Its time grows as n k^2 (the cross products) plus n k (the residuals) plus n (the
+    conversions); ``(k + 2)^2`` keeps few-column problems, whose per-row costs dominate,
+    inside the same time budget (measured: tests/benchmarks/bench_extended_path.py).
+    """
+    return n * (k + 2) * (k + 2)
 
 
 def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
@@ -491,7 +501,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         Drop aliased columns and fit the rest; otherwise raise :class:`RankDeficient`.
     extended_max_work, extended_below_digits
         Take the extended-precision path when the double-precision estimate of
-        correct digits is below ``extended_below_digits`` and ``n * k**2`` is at most
+        correct digits is below ``extended_below_digits`` and :func:`extended_work` is at most
         ``extended_max_work``.
     exact_columns : callable or None
         ``exact_columns(columns, exponents)`` returns design columns (by index) times
@@ -539,7 +549,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         # Small enough for the extended path: only columns that are dependent up to
         # the rounding of their entries (|R_ii| within a few eps of |R_11|) are aliased,
         # so designs with scaled condition numbers up to about 1e15 are still solved.
-        small = rows * k * k <= extended_max_work
+        small = extended_work(rows, k) <= extended_max_work
         rank_tolerance = SMALL_RANK_TOLERANCE if small else max(rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
     rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
@@ -576,7 +586,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
                             kappa, sigma_max)
         method = "householder_qr"
         if (core.digits < extended_below_digits
-                and n * len(kept) ** 2 <= extended_max_work):
+                and extended_work(n, len(kept)) <= extended_max_work):
             if exact_columns is not None:
                 def columns():
                     return exact_columns(kept, e_col[kept])
