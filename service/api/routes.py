@@ -32,6 +32,7 @@ from .schemas import PredictRequestSchema, TestRequestSchema
 __all__ = ["init_app"]
 
 bp = Blueprint("v1", __name__)
+DRAIN_BYTES = 32 * 1024 * 1024
 _PREDICT = PredictRequestSchema()
 _TEST = TestRequestSchema()
 # The contract ships inside the package (service/openapi.yaml, a link to the
@@ -43,6 +44,17 @@ def _read_body() -> bytes:
     """The request body, refusing one over LINFER_MAX_BODY_BYTES with 413."""
     limit = current_app.config["MAX_CONTENT_LENGTH"]
     if request.content_length is not None and request.content_length > limit:
+        # Read (and drop) a moderately oversized body before answering, so that a
+        # client still sending it sees the 413 instead of a broken pipe; a body
+        # larger than DRAIN_BYTES is refused without being read.
+        if request.content_length <= DRAIN_BYTES:
+            stream = request.environ["wsgi.input"]
+            left = request.content_length
+            while left > 0:
+                chunk = stream.read(min(left, 1 << 20))
+                if not chunk:
+                    break
+                left -= len(chunk)
         raise ApiProblem(413, "Content Too Large", body_limit_detail(), "content_too_large")
     if request.content_length is None:
         # A chunked body has no length to refuse up front: read one byte past the
@@ -142,6 +154,10 @@ def fit_endpoint() -> Response:
             else table_body_from_arrow
         body, booleans = reader(_read_body(), request.args), 0
     else:
+        if request.args:
+            raise invalid([FieldError("", f"query parameter {name!r} is for CSV and Arrow "
+                                      "bodies; with JSON, send the option in the body")
+                           for name in request.args])
         settings, body, booleans = _request()
     req = decode_fit(body, settings, booleans)
     if req.summary is not None:
