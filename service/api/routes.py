@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import select
 from pathlib import Path
 
 import numpy as np
@@ -33,11 +34,30 @@ __all__ = ["init_app"]
 
 bp = Blueprint("v1", __name__)
 DRAIN_BYTES = 32 * 1024 * 1024
+DRAIN_WAIT = 1.0
 _PREDICT = PredictRequestSchema()
 _TEST = TestRequestSchema()
 # The contract ships inside the package (service/openapi.yaml, a link to the
 # repository's openapi/linfer.yaml that the wheel build resolves into a file).
 OPENAPI = Path(__file__).resolve().parents[1] / "openapi.yaml"
+
+
+def _drain(length: int) -> None:
+    """Read and drop up to ``length`` bytes of a refused body while they keep arriving.
+
+    A caller that announced the length but waits (before sending) is not waited for:
+    reading stops after DRAIN_WAIT seconds without data.
+    """
+    stream = request.environ["wsgi.input"]
+    sock = request.environ.get("gunicorn.socket")
+    left = length
+    while left > 0:
+        if sock is not None and not select.select([sock], [], [], DRAIN_WAIT)[0]:
+            return
+        chunk = stream.read(min(left, 1 << 16))
+        if not chunk:
+            return
+        left -= len(chunk)
 
 
 def _read_body() -> bytes:
@@ -48,13 +68,7 @@ def _read_body() -> bytes:
         # client still sending it sees the 413 instead of a broken pipe; a body
         # larger than DRAIN_BYTES is refused without being read.
         if request.content_length <= DRAIN_BYTES:
-            stream = request.environ["wsgi.input"]
-            left = request.content_length
-            while left > 0:
-                chunk = stream.read(min(left, 1 << 20))
-                if not chunk:
-                    break
-                left -= len(chunk)
+            _drain(request.content_length)
         raise ApiProblem(413, "Content Too Large", body_limit_detail(), "content_too_large")
     if request.content_length is None:
         # A chunked body has no length to refuse up front: read one byte past the
