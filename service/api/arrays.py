@@ -12,7 +12,7 @@ import numpy as np
 
 from .problems import ApiProblem, FieldError, pointer
 
-__all__ = ["as_vector", "as_matrix", "invalid", "MAX_POINTED"]
+__all__ = ["as_vector", "as_matrix", "invalid", "check_unique", "MAX_POINTED"]
 
 MAX_POINTED = 10
 _NUMBER_TYPES = (int, float)
@@ -21,6 +21,21 @@ _NUMBER_TYPES = (int, float)
 def invalid(errors: list[FieldError], detail: str | None = None) -> ApiProblem:
     return ApiProblem(422, "Invalid request", detail or errors[0].message, "invalid_request",
                       errors[:MAX_POINTED])
+
+
+def check_unique(values: list, where: tuple[str | int, ...], what: str = "") -> dict:
+    """Each value's position; a 422 pointing at the first value that repeats an earlier one.
+
+    ``what`` names the kind of value in the message ("repeats level 0.9 ...").
+    """
+    seen: dict = {}
+    for i, value in enumerate(values):
+        if value in seen:
+            shown = f"{value:g}" if isinstance(value, float) else repr(value)
+            raise invalid([FieldError(pointer(*where, i), f"repeats {what}{shown} (also at "
+                                      f"{pointer(*where, seen[value])})")])
+        seen[value] = i
+    return seen
 
 
 def _object_cells(arr: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:

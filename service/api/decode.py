@@ -20,7 +20,7 @@ from ..stats.hypotheses import Hypothesis, Restriction
 from ..stats.summaries import Summary
 from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term,
                            TermError, expand_terms)
-from .arrays import MAX_POINTED, as_matrix, as_vector, invalid
+from .arrays import MAX_POINTED, as_matrix, as_vector, check_unique, invalid
 from .problems import FieldError, pointer
 from .schemas import FitRequestSchema, flatten_errors
 
@@ -61,12 +61,7 @@ def _check_levels(levels: list[float], settings: Settings) -> tuple[float, ...]:
     if len(levels) > settings.max_levels:
         raise invalid([FieldError("/levels", f"has {len(levels)} levels, more than the limit "
                                   f"of {settings.max_levels} (LINFER_MAX_LEVELS)")])
-    seen: dict[float, int] = {}
-    for i, lv in enumerate(levels):
-        if lv in seen:
-            raise invalid([FieldError(pointer("levels", i),
-                                      f"repeats level {lv:g} (also at /levels/{seen[lv]})")])
-        seen[lv] = i
+    check_unique(levels, ("levels",), what="level ")
     return tuple(levels)
 
 
@@ -104,16 +99,11 @@ def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool) -> list[str
     if len(names) != k:
         raise invalid([FieldError("/column_names",
                                   f"has {len(names)} names for {k} design_matrix columns")])
-    seen: dict[str, int] = {}
-    for j, name in enumerate(names):
-        if name in seen:
-            raise invalid([FieldError(pointer("column_names", j),
-                                      f"repeats {name!r} (also at /column_names/{seen[name]})")])
-        if intercept and name == INTERCEPT:
-            raise invalid([FieldError(pointer("column_names", j),
-                                      "'intercept' names the column of ones the service adds; "
-                                      "rename the column or set intercept to false")])
-        seen[name] = j
+    seen = check_unique(names, ("column_names",))
+    if intercept and INTERCEPT in seen:
+        raise invalid([FieldError(pointer("column_names", seen[INTERCEPT]),
+                                  "'intercept' names the column of ones the service adds; "
+                                  "rename the column or set intercept to false")])
     return list(names)
 
 
@@ -158,7 +148,7 @@ def _table_layout(data: dict[str, Any], settings: Settings):
         predictors, categorical = _term_columns(terms, table, response, weight_col)
     elif "predictor_columns" in data:
         predictors, categorical = data["predictor_columns"], []
-        seen: dict[str, int] = {}
+        check_unique(predictors, ("predictor_columns",))
         for i, name in enumerate(predictors):
             at = pointer("predictor_columns", i)
             if name not in table:
@@ -167,10 +157,6 @@ def _table_layout(data: dict[str, Any], settings: Settings):
                 raise invalid([FieldError(at, f"{name!r} is the response column")])
             if name == weight_col:
                 raise invalid([FieldError(at, f"{name!r} is the weights column")])
-            if name in seen:
-                raise invalid([FieldError(at, f"repeats {name!r} (also at "
-                                          f"/predictor_columns/{seen[name]})")])
-            seen[name] = i
     else:
         predictors, categorical = [c for c in table if c not in (response, weight_col)], []
     if data["intercept"] and INTERCEPT in predictors:
@@ -351,13 +337,7 @@ def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
     s = data["summary"]
     strict = data["_strict"]
     names = s["column_names"]
-    seen: dict[str, int] = {}
-    for j, name in enumerate(names):
-        if name in seen:
-            raise invalid([FieldError(pointer("summary", "column_names", j),
-                                      f"repeats {name!r} (also at "
-                                      f"/summary/column_names/{seen[name]})")])
-        seen[name] = j
+    seen = check_unique(names, ("summary", "column_names"))
     if INTERCEPT in seen and seen[INTERCEPT] != 0:
         raise invalid([FieldError(pointer("summary", "column_names", seen[INTERCEPT]),
                                   "the intercept column (a column of ones) must come first")])

@@ -15,7 +15,7 @@ import numpy as np
 from ..settings import Settings
 from ..stats.design import INTERCEPT
 from ..stats.model import ModelSummary
-from .arrays import as_matrix, as_vector, invalid
+from .arrays import as_matrix, as_vector, check_unique, invalid
 from .encode import number
 from .problems import FieldError, pointer
 
@@ -54,11 +54,7 @@ def decode_model(m: dict[str, Any], strict: bool, settings: Settings) -> ModelSu
     if k > settings.max_columns:
         raise _fail(("names",), f"has {k} coefficients, more than the limit of "
                     f"{settings.max_columns} (LINFER_MAX_COLUMNS)")
-    seen: dict[str, int] = {}
-    for j, name in enumerate(names):
-        if name in seen:
-            raise _fail(("names", j), f"repeats {name!r} (also at /model/names/{seen[name]})")
-        seen[name] = j
+    seen = check_unique(names, ("model", "names"))
     if m["intercept"] and names[0] != INTERCEPT:
         raise _fail(("names", 0), "a model with an intercept names it 'intercept', first")
     if not m["intercept"] and INTERCEPT in seen:

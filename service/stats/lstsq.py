@@ -214,22 +214,21 @@ def _norm(v: np.ndarray) -> float:
     return math.sqrt(float(np.dot(v, v)))
 
 
-def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """``Q' v`` for the Householder factor held in ``qr`` and ``tau``."""
+def _apply(qr: np.ndarray, tau: np.ndarray, v: np.ndarray, trans: str) -> np.ndarray:
+    """``Q' v`` (``trans="T"``) or ``Q v`` (``"N"``) for the factor in ``qr`` and ``tau``."""
     c = np.asfortranarray(v.reshape(-1, 1))
-    cq, _, info = lapack.dormqr("L", "T", qr, tau, c, lwork=64)
+    cq, _, info = lapack.dormqr("L", trans, qr, tau, c, lwork=64)
     if info != 0:
         raise ArithmeticError(f"dormqr failed with info={info}")
     return cq[:, 0]
+
+
+def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
+    return _apply(qr, tau, v, "T")
 
 
 def _apply_q(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """``Q v`` for the Householder factor held in ``qr`` and ``tau``."""
-    c = np.asfortranarray(v.reshape(-1, 1))
-    cq, _, info = lapack.dormqr("L", "N", qr, tau, c, lwork=64)
-    if info != 0:
-        raise ArithmeticError(f"dormqr failed with info={info}")
-    return cq[:, 0]
+    return _apply(qr, tau, v, "N")
 
 
 def _sequential_kept(b: np.ndarray, tolerance: float) -> list[int]:

@@ -13,9 +13,10 @@ Bodies are posted with ``json.dumps`` so that their key order is the caller's.
 from __future__ import annotations
 
 import json
-import re
 
 import pytest
+
+from pointers import resolve
 
 from service.app import create_app
 
@@ -35,29 +36,6 @@ def post(client, path, body):
     return client.post(path, data=json.dumps(body), content_type="application/json")
 
 
-def resolve(document, ptr):
-    """Resolve an RFC 6901 JSON Pointer in ``document``; KeyError/IndexError if it does not."""
-    assert isinstance(ptr, str)
-    if ptr == "":
-        return document
-    assert ptr.startswith("/"), f"{ptr!r} is not a JSON Pointer"
-    node = document
-    for token in ptr[1:].split("/"):
-        assert not re.search(r"~[^01]|~$", token), f"bad escape in {ptr!r}"
-        token = token.replace("~1", "/").replace("~0", "~")
-        if isinstance(node, dict):
-            if token not in node:
-                raise KeyError(f"{ptr!r}: no member {token!r}")
-            node = node[token]
-        elif isinstance(node, list):
-            assert re.fullmatch(r"0|[1-9][0-9]*", token), f"{ptr!r}: {token!r} is no index"
-            index = int(token)
-            if index >= len(node):
-                raise IndexError(f"{ptr!r}: index {index} beyond {len(node)}")
-            node = node[index]
-        else:
-            raise KeyError(f"{ptr!r}: {token!r} into a scalar")
-    return node
 
 
 def check(resp, body, ptr, fragment):

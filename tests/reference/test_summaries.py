@@ -42,6 +42,8 @@ from typing import Any
 
 import numpy as np
 import pytest
+
+from pointers import resolve
 import statsmodels.api as sm
 from scipy import linalg
 
@@ -697,24 +699,6 @@ def test_statsmodels_crosscheck(api, name, form):
 
 
 # ----------------------------------------------------------------------------- validation
-
-
-def resolve(doc: Any, ptr: str) -> Any:
-    """The value at RFC 6901 pointer ``ptr`` in ``doc``; KeyError/IndexError when it names none."""
-    if ptr == "":
-        return doc
-    assert ptr.startswith("/"), ptr
-    node = doc
-    for token in ptr[1:].split("/"):
-        token = token.replace("~1", "/").replace("~0", "~")
-        if isinstance(node, list):
-            assert token.isdigit() and (token == "0" or not token.startswith("0")), ptr
-            node = node[int(token)]
-        elif isinstance(node, dict):
-            node = node[token]
-        else:
-            raise KeyError(f"{ptr}: {token!r} under a {type(node).__name__}")
-    return node
 
 
 SMALL = CASES["intercept"]
