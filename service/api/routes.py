@@ -45,16 +45,21 @@ OPENAPI = Path(__file__).resolve().parents[1] / "openapi.yaml"
 def _drain(length: int) -> None:
     """Read and drop up to ``length`` bytes of a refused body while they keep arriving.
 
-    A caller that announced the length but waits (before sending) is not waited for:
-    reading stops after DRAIN_WAIT seconds without data.
+    Straight from gunicorn's socket (its body reader would block for a full chunk), and
+    only while data come: a caller that announced the length but waits before sending
+    is not waited for beyond DRAIN_WAIT seconds. Under another server, nothing is read.
     """
-    stream = request.environ["wsgi.input"]
     sock = request.environ.get("gunicorn.socket")
+    if sock is None:
+        return
     left = length
     while left > 0:
-        if sock is not None and not select.select([sock], [], [], DRAIN_WAIT)[0]:
+        if not select.select([sock], [], [], DRAIN_WAIT)[0]:
             return
-        chunk = stream.read(min(left, 1 << 16))
+        try:
+            chunk = sock.recv(min(left, 1 << 16))
+        except OSError:
+            return
         if not chunk:
             return
         left -= len(chunk)

@@ -66,6 +66,21 @@ def test_body_over_the_byte_limit_is_a_413_problem(limited: str) -> None:
     _assert_limit(post(limited, "/v1/fit", body), 413, "LINFER_MAX_BODY_BYTES", None)
 
 
+def test_a_python_client_sending_a_large_body_sees_the_413(limited: str) -> None:
+    # A body well past the limit, sent whole by the project's client (urllib): the
+    # server reads and drops it while it arrives, so the caller gets the problem
+    # document, not a broken pipe.
+    from service.client import ApiError, Client
+
+    n = 200_000  # about 3 MB of JSON, 150 times the limit
+    with pytest.raises(ApiError) as caught:
+        Client(limited, retries=0, timeout=30).fit(
+            design_matrix=[[float(i % 7)] for i in range(n)],
+            response=[float(i % 11) for i in range(n)])
+    assert caught.value.status == 413
+    assert "LINFER_MAX_BODY_BYTES" in caught.value.problem["detail"]
+
+
 def test_chunked_body_over_the_byte_limit_is_a_413_problem(limited: str) -> None:
     # No Content-Length: the server must count what it reads, not trust a header.
     chunks = [b'{"design_matrix": [', *([b"[1.0], "] * 4000), b'[1.0]], "response": [1]}']
