@@ -301,22 +301,22 @@ class _Core:
 
 
 def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray | None,
-                 w: np.ndarray | None, centered: bool, qr: np.ndarray, pivots: np.ndarray,
-                 tau: np.ndarray, kappa: float, sigma_max: float) -> _Core:
+                 w: np.ndarray | None, centered: bool, qr: np.ndarray, r11: np.ndarray,
+                 pivots: np.ndarray, tau: np.ndarray, kappa: float,
+                 sigma_max: float) -> _Core:
     k = a.shape[1]
-    r11 = np.triu(qr[:k, :k])
     z = _apply_qt(qr, tau, ys_w)[:k]
     bp = solve_triangular(r11, z)
     bs = np.empty(k)
     bs[pivots] = bp
     a_ld = a.astype(np.longdouble)
-    rinv = solve_triangular(r11, np.eye(k))
-    cov = np.empty((k, k))
-    cov[np.ix_(pivots, pivots)] = rinv @ rinv.T
+    root = np.empty((k, k))
+    root[pivots] = solve_triangular(r11, np.eye(k))
+    cov = root @ root.T
     rw = _residual(ys_w, a_ld, bs)
     err_b, err_se = _error_bounds(ys_w, bs, rw, cov, kappa, sigma_max)
     if err_b > max(err_se, 8 * EPS):
-        bs, last_change, steps = _refine(a, a_ld, qr, tau, r11, pivots, ys_w, bs)
+        bs, last_change, steps = _refine(a, a_ld, qr, tau, r11, pivots, ys_w, bs, rw)
         if steps:
             # A converging refinement leaves an error below its last correction.
             err_b = min(err_b, max(10 * last_change, EPS))
@@ -347,8 +347,6 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     else:
         err_sigma = 1.0 if y_norm > 0 else 0.0
     worst = max(err_b, err_se, err_sigma, EPS / 2)
-    root = np.empty((k, k))
-    root[pivots] = rinv
     return _Core(coefficients=bs, covariance=cov, root=root, residuals=residuals,
                  residual_ss=rss,
                  regression_ss=reg_ss, total_ss=tot_ss, working_digits=15.95,
@@ -385,7 +383,7 @@ def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarr
 
 def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
             r11: np.ndarray, pivots: np.ndarray, y: np.ndarray, bs: np.ndarray,
-            steps: int = 4) -> tuple[np.ndarray, float, int]:
+            r0: np.ndarray, steps: int = 4) -> tuple[np.ndarray, float, int]:
     """Iterative refinement of the least-squares solution on the augmented system.
 
     ``[I A; A' 0] [r; x] = [y; 0]``, with the residuals ``f = y - r - A x`` and
@@ -397,11 +395,12 @@ def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
     """
     n, k = a.shape
     x = bs.copy()
-    r = _residual(y, a_ld, x)
+    r = r0.copy()
+    y_ld = y.astype(np.longdouble)
     last = math.inf
     taken = 0
     for _ in range(steps):
-        f = (y.astype(np.longdouble) - r - a_ld @ x.astype(np.longdouble)).astype(float)
+        f = (y_ld - r - a_ld @ x.astype(np.longdouble)).astype(float)
         g = (-(a_ld.T @ r.astype(np.longdouble))).astype(float)
         h = solve_triangular(r11, g[pivots], trans="T")
         d = _apply_qt(qr, tau, f)
@@ -411,8 +410,8 @@ def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
         pad = np.zeros(n)
         pad[:k] = z
         dr = f - _apply_q(qr, tau, pad)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            change = float(np.max(np.where(x != 0, np.abs(dx) / np.abs(x), 0.0)))
+        moved = x != 0
+        change = float(np.max(np.abs(dx[moved]) / np.abs(x[moved]))) if moved.any() else 0.0
         if not np.all(np.isfinite(dx)) or change > 0.5 * last:
             break
         x = x + dx
@@ -535,8 +534,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     sw = None if weights is None else np.sqrt(weights)
     xw = x if sw is None else x * sw[:, None]
     e_col = _power_of_two_exponents(xw)
-    e_y = int(_power_of_two_exponents(y.reshape(-1, 1) if sw is None
-                                      else (y * sw).reshape(-1, 1))[0])
+    e_y = int(_power_of_two_exponents((y if sw is None else y * sw)[:, None])[0])
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
     a = np.ldexp(xw, -e_col[None, :])
@@ -552,12 +550,10 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         rank_tolerance = SMALL_RANK_TOLERANCE if small else max(rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
     rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
-    r_full = np.triu(qr[:k, :k])
-
     kept = list(range(k))
     aliases: tuple[Alias, ...] = ()
     if rank < k:
-        kept, aliases = _aliases(r_full, pivots, rank, threshold, e_col)
+        kept, aliases = _aliases(np.triu(qr[:k, :k]), pivots, rank, threshold, e_col)
         if not drop_aliased:
             raise RankDeficient(aliases, rank, k)
 
@@ -581,7 +577,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         singular, vt, kappa, sigma_max = np.zeros(0), np.zeros((0, 0)), 1.0, 1.0
 
     if len(kept):
-        core = _double_path(a_kept, ys_w, ys, sw, weights, centered, qr, pivots, tau,
+        core = _double_path(a_kept, ys_w, ys, sw, weights, centered, qr, rk, pivots, tau,
                             kappa, sigma_max)
         method = "householder_qr"
         if (core.digits < extended_below_digits
