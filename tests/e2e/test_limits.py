@@ -16,6 +16,8 @@ from typing import Any
 import numpy as np
 import pytest
 
+from contract import check_http
+
 from .test_load import PROBLEM_JSON, Reply, post
 
 pytestmark = pytest.mark.e2e
@@ -38,7 +40,9 @@ def _matrix(n: int, k: int, **options: Any) -> dict[str, Any]:
 
 
 def _send(base_url: str, doc: dict[str, Any], path: str = "/v1/fit") -> Reply:
-    return post(base_url, path, json.dumps(doc).encode())
+    reply = post(base_url, path, json.dumps(doc).encode())
+    check_http("POST", path, reply.status, reply.content_type, reply.body)
+    return reply
 
 
 def _assert_limit(reply: Reply, status: int, variable: str, pointer: str) -> dict:

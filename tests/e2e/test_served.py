@@ -12,6 +12,7 @@ import math
 import os
 import time
 import urllib.error
+import urllib.parse
 import urllib.request
 from dataclasses import dataclass
 from email.message import Message
@@ -19,6 +20,8 @@ from pathlib import Path
 from typing import Any, Iterable, Mapping
 
 import pytest
+
+from contract import check_http
 
 from service.app import create_app
 
@@ -59,10 +62,15 @@ def call(url: str, method: str = "GET", data: bytes | Iterable[bytes] | None = N
     start = time.monotonic()
     try:
         with OPENER.open(req, timeout=timeout) as resp:
-            return Answer(resp.status, resp.headers, resp.read(), time.monotonic() - start)
+            answer = Answer(resp.status, resp.headers, resp.read(), time.monotonic() - start)
     except urllib.error.HTTPError as err:
         with err:
-            return Answer(err.code, err.headers, err.read(), time.monotonic() - start)
+            answer = Answer(err.code, err.headers, err.read(), time.monotonic() - start)
+    # Every answer read over real HTTP is checked against openapi/linfer.yaml too.
+    parts = urllib.parse.urlsplit(url)
+    check_http(method, parts.path, answer.status, answer.headers.get("Content-Type", ""),
+               answer.body, parts.query)
+    return answer
 
 
 def post_json(url: str, body: bytes, headers: Mapping[str, str] | None = None,
