@@ -205,6 +205,37 @@ def _model_from(data: dict, body: dict, settings: Settings,
     return result.model, result
 
 
+def _prediction_notices(model: ModelSummary, predictions: list, data: dict) -> list[dict]:
+    """Why a prediction's figures are null: no residual df, an undefined covariance,
+    overflow, or a row the data do not determine."""
+    notices = []
+    est = model.estimable
+    covariance_ok = bool(np.all(np.isfinite(model.covariance[np.ix_(est, est)])))
+    if model.residual_df <= 0:
+        notices.append({"code": "no_residual_df", "message": "The model has no residual "
+                        "degrees of freedom: standard errors and intervals are undefined.",
+                        "pointer": None})
+    elif not covariance_ok:
+        notices.append({"code": "covariance_undefined", "message": "The model's covariance "
+                        "is undefined (null), so standard errors and intervals are null; "
+                        "refit with another covariance kind.", "pointer": "/model/covariance"})
+    defined = model.residual_df > 0 and covariance_ok and math.isfinite(model.residual_variance)
+    first = next((n for n in model.names if not (model.intercept and n == INTERCEPT)), None)
+    for i, p in enumerate(predictions):
+        where = pointer("new_rows", i) if "new_rows" in data else pointer("new_table", first, i)
+        figures = (p.mean, p.standard_error,
+                   *(bound for iv in p.intervals for bound in (iv.lower, iv.upper)))
+        if p.estimable and defined and not all(math.isfinite(v) for v in figures):
+            notices.append({"code": "overflow", "message": (
+                f"New row {i}: a figure exceeds the range of double precision and is null; "
+                "rescale the predictors."), "pointer": where})
+        if not p.estimable:
+            notices.append({"code": "not_estimable", "message": (
+                f"New row {i} breaks the relation of an aliased column: the data do not "
+                "determine its mean, which is null."), "pointer": where})
+    return notices
+
+
 @bp.post("/v1/predict")
 def predict_endpoint() -> Response:
     settings, body, booleans = _request()
@@ -213,34 +244,7 @@ def predict_endpoint() -> Response:
     model, _ = _model_from(data, body, settings)
     x, weights = decode_new_rows(data, body, model, settings)
     predictions = predict(model, x, levels, data["kind"], weights)
-    notices = []
-    if model.residual_df <= 0:
-        notices.append({"code": "no_residual_df", "message": "The model has no residual "
-                        "degrees of freedom: standard errors and intervals are undefined.",
-                        "pointer": None})
-    elif not np.all(np.isfinite(model.covariance[np.ix_(model.estimable, model.estimable)])):
-        notices.append({"code": "covariance_undefined", "message": "The model's covariance "
-                        "is undefined (null), so standard errors and intervals are null; "
-                        "refit with another covariance kind.", "pointer": "/model/covariance"})
-    first = next((n for n in model.names if not (model.intercept and n == INTERCEPT)), None)
-    for i, p in enumerate(predictions):
-        if p.estimable and not all(math.isfinite(v) for v in
-                                   (p.mean, p.standard_error,
-                                    *(x for iv in p.intervals for x in (iv.lower, iv.upper)))):
-            if model.residual_df > 0 and math.isfinite(model.residual_variance) and \
-                    np.all(np.isfinite(model.covariance[np.ix_(model.estimable,
-                                                               model.estimable)])):
-                notices.append({"code": "overflow", "message": (
-                    f"New row {i}: a figure exceeds the range of double precision and is "
-                    "null; rescale the predictors."), "pointer": (
-                        pointer("new_rows", i) if "new_rows" in data
-                        else pointer("new_table", first, i))})
-        if not p.estimable:
-            notices.append({"code": "not_estimable", "message": (
-                f"New row {i} breaks the relation of an aliased column: the data do not "
-                "determine its mean, which is null."), "pointer": (
-                    pointer("new_rows", i) if "new_rows" in data
-                    else pointer("new_table", first, i))})
+    notices = _prediction_notices(model, predictions, data)
     return json_response({
         "kind": data["kind"],
         "covariance_kind": model.covariance_kind,
