@@ -82,21 +82,30 @@ def describe_alias(alias: Alias, names: tuple[str, ...]) -> str:
 
 
 def _column_spread(design: Design) -> np.ndarray | None:
-    """``sqrt(sum w (x_j - xbar_j)^2)`` per column, scaled against overflow; NaN for the intercept."""
+    """``sqrt(sum w (x_j - xbar_j)^2)`` per column, for VIF; NaN for the intercept.
+
+    One pass (``sum w x^2 - (sum w x)^2 / sum w``) where that keeps at least 6 digits,
+    which is plenty for a diagnostic; a second, centred pass for columns whose mean
+    dwarfs their spread; columns are scaled first when squares could overflow.
+    """
     if not design.intercept:
         return None
     x = design.matrix
-    w = design.weights
-    big = np.max(np.abs(x), axis=0)
+    w = np.ones(x.shape[0]) if design.weights is None else design.weights
+    big = np.maximum(np.max(x, axis=0), -np.min(x, axis=0))
     big = np.where(big > 0, big, 1.0)
-    xs = x / big
-    if w is None:
-        dev = xs - xs.mean(axis=0)
-        ss = np.einsum("ij,ij->j", dev, dev)
-    else:
-        dev = xs - (w @ xs) / w.sum()
-        ss = np.einsum("i,ij,ij->j", w, dev, dev)
-    spread = np.sqrt(ss) * big
+    extreme = bool(np.any((big > 1e150) | (big < 1e-150)))
+    xs = x / big if extreme else x
+    total = float(np.sum(w))
+    sums = w @ xs
+    squares = np.einsum("i,ij,ij->j", w, xs, xs)
+    ss = squares - sums * sums / total
+    lost = ss <= 1e-6 * squares
+    if np.any(lost):
+        cols = np.flatnonzero(lost)
+        dev = xs[:, cols] - sums[cols] / total
+        ss[cols] = np.einsum("i,ij,ij->j", w, dev, dev)
+    spread = np.sqrt(np.clip(ss, 0.0, None)) * (big if extreme else 1.0)
     spread[0] = np.nan
     return spread
 

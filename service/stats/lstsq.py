@@ -177,10 +177,15 @@ def extended_work(n: int, k: int) -> int:
 
 def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
     """Exponents ``e`` such that ``a[:, j] * 2**-e[j]`` has a 2-norm in [0.5, 1)."""
-    big = np.max(np.abs(a), axis=0)
+    big = np.maximum(np.max(a, axis=0), -np.min(a, axis=0)) if a.shape[0] else \
+        np.zeros(a.shape[1])
     _, e_big = np.frexp(big)
-    pre = np.ldexp(a, -e_big)
-    norms = np.sqrt(np.einsum("ij,ij->j", pre, pre))
+    if a.shape[0] and np.all((big < 1e150) & (big > 1e-150) | (big == 0)):
+        # Squares neither overflow nor underflow: no scaled copy needed.
+        norms = np.sqrt(np.einsum("ij,ij->j", a, a)) / np.ldexp(1.0, e_big)
+    else:
+        pre = np.ldexp(a, -e_big)
+        norms = np.sqrt(np.einsum("ij,ij->j", pre, pre))
     _, e_norm = np.frexp(norms)
     exponents = e_big + e_norm
     return np.where(big > 0, exponents, 0).astype(np.int64)
@@ -276,14 +281,25 @@ def _aliases(r_full: np.ndarray, pivots: np.ndarray, rank: int, tolerance: float
     return kept, tuple(found)
 
 
+def _sum(v: np.ndarray) -> float:
+    """A sum correctly rounded (``math.fsum``) for up to 65,536 terms; beyond, the exact
+    sum of pairwise partial sums over blocks of 1,024 (error a few eps of the terms'
+    absolute sum, at numpy speed)."""
+    if v.size <= 65_536:
+        return math.fsum(v.tolist())
+    cut = v.size - v.size % 1024
+    partial = v[:cut].reshape(-1, 1024).sum(axis=1)
+    return math.fsum(partial.tolist()) + math.fsum(v[cut:].tolist())
+
+
 def _fsum_sq(v: np.ndarray, w: np.ndarray | None = None) -> float:
-    return math.fsum((v * v).tolist() if w is None else (w * v * v).tolist())
+    return _sum(v * v if w is None else w * v * v)
 
 
 def _centre(y: np.ndarray, w: np.ndarray | None) -> float:
     if w is None:
-        return math.fsum(y.tolist()) / y.size
-    return math.fsum((w * y).tolist()) / math.fsum(w.tolist())
+        return _sum(y) / y.size
+    return _sum(w * y) / _sum(w)
 
 
 @dataclass(frozen=True)
@@ -310,16 +326,21 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     bp = solve_triangular(r11, z)
     bs = np.empty(k)
     bs[pivots] = bp
-    a_ld = a.astype(np.longdouble)
+    # Residuals in 80-bit arithmetic where that is cheap; large problems keep double
+    # (BLAS) residuals unless refinement asks for extended ones.
+    small = a.size <= REFINE_ALWAYS_CELLS
+    a_ld = a.astype(np.longdouble) if small else None
     root = np.empty((k, k))
     root[pivots] = solve_triangular(r11, np.eye(k))
     cov = root @ root.T
-    rw = _residual(ys_w, a_ld, bs)
+    rw = _residual(ys_w, a if a_ld is None else a_ld, bs)
     err_b, err_se = _error_bounds(ys_w, bs, rw, cov, kappa, sigma_max)
     # Refine where it pays: always on small problems (cheap), and on large ones only
-    # when the estimates are markedly less accurate than double precision allows.
-    worth = 8 * EPS if a.size <= REFINE_ALWAYS_CELLS else 1e3 * EPS
+    # when the estimates have lost many of the digits double precision allows.
+    worth = 8 * EPS if small else 1e-10
     if err_b > max(err_se, worth):
+        if a_ld is None:
+            a_ld = a.astype(np.longdouble)
         bs, last_change, steps = _refine(a, a_ld, qr, tau, r11, pivots, ys_w, bs, rw)
         if steps:
             # A converging refinement leaves an error below its last correction.
@@ -338,7 +359,7 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     b_norm = _norm(bs)
     r_norm = math.sqrt(rss)
     y_norm = _norm(ys_w)
-    # The residual norm carries the rounding of y - X b in 80-bit arithmetic and
+    # The residual norm carries the rounding of y - X b and
     # the second-order effect of the error in b; relative to a tiny residual
     # (a near-perfect fit) both grow, and the digits estimate says so.
     if r_norm > 0:
@@ -346,7 +367,9 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
         move = min(sigma_max * b_norm * err_b,
                    EPS * math.sqrt(k) * (sigma_max * b_norm + y_norm + kappa * r_norm))
         relative_move = move / r_norm
-        err_sigma = (float(np.finfo(np.longdouble).eps) * y_norm / r_norm
+        # Rounding of y - A b: 80-bit when a long-double copy was used, else double.
+        res_eps = float(np.finfo(np.longdouble).eps) if a_ld is not None else EPS
+        err_sigma = (res_eps * (y_norm + sigma_max * b_norm) / r_norm
                      + 0.5 * relative_move * relative_move)
     else:
         err_sigma = 1.0 if y_norm > 0 else 0.0
@@ -357,9 +380,12 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
                  digits=min(FULL_DIGITS, -math.log10(worst)))
 
 
-def _residual(y: np.ndarray, a_ld: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """``y - A b`` accumulated in 80-bit arithmetic, rounded to double once."""
-    return (y.astype(np.longdouble) - a_ld @ b.astype(np.longdouble)).astype(float)
+def _residual(y: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``y - A b``: accumulated in 80-bit arithmetic and rounded once when ``a`` is a
+    long-double copy; in double (BLAS) otherwise."""
+    if a.dtype == np.longdouble:
+        return (y.astype(np.longdouble) - a @ b.astype(np.longdouble)).astype(float)
+    return y - a @ b
 
 
 def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarray,
@@ -541,7 +567,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     e_y = int(_power_of_two_exponents((y if sw is None else y * sw)[:, None])[0])
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
-    a = np.ldexp(xw, -e_col[None, :])
+    # Fortran order from the start: LAPACK factors a copy of it without another.
+    a = np.ldexp(xw, -e_col[None, :], out=np.empty(xw.shape, order="F"))
 
     qr, pivots, tau = _householder(a)
     diag = np.abs(np.diag(qr[:k, :k]))
