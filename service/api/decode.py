@@ -150,13 +150,8 @@ def _table_layout(data: dict[str, Any], settings: Settings):
         predictors, categorical = data["predictor_columns"], []
         check_unique(predictors, ("predictor_columns",))
         for i, name in enumerate(predictors):
-            at = pointer("predictor_columns", i)
-            if name not in table:
-                raise invalid([FieldError(at, f"{name!r} names no column of table")])
-            if name == response:
-                raise invalid([FieldError(at, f"{name!r} is the response column")])
-            if name == weight_col:
-                raise invalid([FieldError(at, f"{name!r} is the weights column")])
+            _check_predictor(name, pointer("predictor_columns", i), table, response,
+                             weight_col)
     else:
         predictors, categorical = [c for c in table if c not in (response, weight_col)], []
     if data["intercept"] and INTERCEPT in predictors:
@@ -210,6 +205,17 @@ def _table_layout(data: dict[str, Any], settings: Settings):
             expanded.terms)
 
 
+def _check_predictor(name: str, at: str, table: dict[str, Any], response: str,
+                     weight_col: str | None) -> None:
+    """A predictor must be a column of the table, and neither the response nor the weights."""
+    if name not in table:
+        raise invalid([FieldError(at, f"{name!r} names no column of table")])
+    if name == response:
+        raise invalid([FieldError(at, f"{name!r} is the response column")])
+    if name == weight_col:
+        raise invalid([FieldError(at, f"{name!r} is the weights column")])
+
+
 def _term_columns(terms: list[Term], table: dict[str, Any], response: str,
                   weight_col: str | None) -> tuple[list[str], list[str]]:
     """The raw numeric and categorical columns that ``terms`` use, checked against the table."""
@@ -226,12 +232,7 @@ def _term_columns(terms: list[Term], table: dict[str, Any], response: str,
             used, field = [term.column], "categorical"
         at = pointer("terms", i, *([field] if field else []))
         for name in used:
-            if name not in table:
-                raise invalid([FieldError(at, f"{name!r} names no column of table")])
-            if name == response:
-                raise invalid([FieldError(at, f"{name!r} is the response column")])
-            if name == weight_col:
-                raise invalid([FieldError(at, f"{name!r} is the weights column")])
+            _check_predictor(name, at, table, response, weight_col)
         target = categorical if isinstance(term, CategoricalTerm) else numeric
         for name in used:
             if name not in target:
