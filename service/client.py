@@ -457,6 +457,20 @@ def _float_column(series: Any, name: str) -> Any:
 
 # --- summaries -----------------------------------------------------------------------------
 
+def _float_arrays(np: Any, x: Any, y: Any, x_name: str) -> tuple[Any, Any]:
+    """x as a float64 matrix (a vector becomes one column), y as float64 with a
+    one-column matrix flattened; the caller checks y's shape against x."""
+    xv = np.asarray(x, dtype="float64")
+    if xv.ndim == 1:
+        xv = xv[:, None]
+    if xv.ndim != 2:
+        raise ValueError(f"{x_name} must be 1- or 2-dimensional, not of shape {xv.shape}")
+    yv = np.asarray(y, dtype="float64")
+    if yv.ndim == 2 and yv.shape[1] == 1:
+        yv = yv[:, 0]
+    return xv, yv
+
+
 def _summary_names(column_names: Sequence[str] | None, k: int, intercept: bool) -> list[str]:
     """The summary's column names: ``intercept`` first when asked, then the predictors."""
     names = [f"x{j + 1}" for j in range(k)] if column_names is None else [
@@ -512,14 +526,7 @@ def summary_from_arrays(x: Any, y: Any, column_names: Sequence[str] | None = Non
     """
     np = _optional("numpy", "summary_from_arrays()")
     _check_kind(kind)
-    xv = np.asarray(x, dtype="float64")
-    if xv.ndim == 1:
-        xv = xv[:, None]
-    if xv.ndim != 2:
-        raise ValueError(f"x must be 1- or 2-dimensional, not of shape {xv.shape}")
-    yv = np.asarray(y, dtype="float64")
-    if yv.ndim == 2 and yv.shape[1] == 1:
-        yv = yv[:, 0]
+    xv, yv = _float_arrays(np, x, y, "x")
     if yv.ndim != 1 or yv.shape[0] != xv.shape[0]:
         raise ValueError(f"y must be 1-dimensional with one value per row of x "
                          f"({xv.shape[0]}), not of shape {yv.shape}")
@@ -710,14 +717,7 @@ class Client:
         np = _optional("numpy", "fit_arrays()")
         if column_names is None and hasattr(X, "columns"):
             column_names = [str(c) for c in X.columns]
-        x = np.asarray(X, dtype="float64")
-        if x.ndim == 1:
-            x = x[:, None]
-        if x.ndim != 2:
-            raise ValueError(f"X must be 1- or 2-dimensional, not of shape {x.shape}")
-        yv = np.asarray(y, dtype="float64")
-        if yv.ndim == 2 and yv.shape[1] == 1:
-            yv = yv[:, 0]
+        x, yv = _float_arrays(np, X, y, "X")
         if yv.ndim != 1:
             raise ValueError(f"y must be 1-dimensional, not of shape {yv.shape}")
         body: Json = {"design_matrix": x, "response": yv}
