@@ -91,21 +91,32 @@ def _column_spread(design: Design) -> np.ndarray | None:
     if not design.intercept:
         return None
     x = design.matrix
-    w = np.ones(x.shape[0]) if design.weights is None else design.weights
-    big = np.maximum(np.max(x, axis=0), -np.min(x, axis=0))
-    big = np.where(big > 0, big, 1.0)
-    extreme = bool(np.any((big > 1e150) | (big < 1e-150)))
-    xs = x / big if extreme else x
-    total = float(np.sum(w))
-    sums = w @ xs
-    squares = np.einsum("i,ij,ij->j", w, xs, xs)
+    w = design.weights
+    big = np.abs(x).max(axis=0)
+    extreme = not (big.size and 1e-150 < big.min() and big.max() < 1e150)
+    if extreme:
+        big = np.where(big > 0, big, 1.0)
+        xs = x / big
+    else:
+        xs = x
+    if w is None:
+        total = float(x.shape[0])
+        sums = xs.sum(axis=0)
+        squares = np.einsum("ij,ij->j", xs, xs)
+    else:
+        total = float(np.sum(w))
+        sums = w @ xs
+        squares = np.einsum("i,ij,ij->j", w, xs, xs)
     ss = squares - sums * sums / total
     lost = ss <= 1e-6 * squares
-    if np.any(lost):
+    if lost.any():
         cols = np.flatnonzero(lost)
         dev = xs[:, cols] - sums[cols] / total
-        ss[cols] = np.einsum("i,ij,ij->j", w, dev, dev)
-    spread = np.sqrt(np.clip(ss, 0.0, None)) * (big if extreme else 1.0)
+        ss[cols] = np.einsum("ij,ij->j", dev, dev) if w is None else \
+            np.einsum("i,ij,ij->j", w, dev, dev)
+    spread = np.sqrt(np.maximum(ss, 0.0))
+    if extreme:
+        spread *= big
     spread[0] = np.nan
     return spread
 

@@ -28,6 +28,7 @@ The solver never forms X'X in double precision. Its steps:
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Callable
@@ -150,18 +151,21 @@ class LeastSquares:
     estimated_correct_digits: float
     projection: Projection | None = None
     factor: tuple[np.ndarray, np.ndarray] | None = None
+    thin_q: np.ndarray | None = None
 
     def project(self, v: np.ndarray) -> np.ndarray:
         """The orthogonal projection of ``v`` on the span of the kept ``sqrt(W) X``.
 
-        ``Q Q' v`` from the Householder factor (``factor``: LAPACK's packed QR and tau).
+        ``Q_1 Q_1' v`` from the Householder factor (``factor``: LAPACK's packed QR and
+        tau; ``thin_q``: its first ``rank`` columns of Q, kept for small problems).
         """
         if self.factor is None:
             raise ValueError("this solution keeps no factor")
+        if self.thin_q is not None:
+            return self.thin_q @ (self.thin_q.T @ v)
         qr, tau = self.factor
-        r = self.rank
         coordinates = _apply_qt(qr, tau, v)
-        coordinates[r:] = 0.0
+        coordinates[self.rank:] = 0.0
         return _apply_q(qr, tau, coordinates)
 
 
@@ -177,18 +181,36 @@ def extended_work(n: int, k: int) -> int:
 
 def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
     """Exponents ``e`` such that ``a[:, j] * 2**-e[j]`` has a 2-norm in [0.5, 1)."""
+    if a.shape[0]:
+        squares = np.einsum("ij,ij->j", a, a)
+        if squares.size and 1e-290 < squares.min() and squares.max() < 1e290:
+            # No square overflowed and no column is zero or tiny: the norms are direct.
+            return np.frexp(np.sqrt(squares))[1].astype(np.int64)
     big = np.maximum(np.max(a, axis=0), -np.min(a, axis=0)) if a.shape[0] else \
         np.zeros(a.shape[1])
     _, e_big = np.frexp(big)
-    if a.shape[0] and np.all((big < 1e150) & (big > 1e-150) | (big == 0)):
-        # Squares neither overflow nor underflow: no scaled copy needed.
-        norms = np.sqrt(np.einsum("ij,ij->j", a, a)) / np.ldexp(1.0, e_big)
-    else:
-        pre = np.ldexp(a, -e_big)
-        norms = np.sqrt(np.einsum("ij,ij->j", pre, pre))
+    pre = np.ldexp(a, -e_big)
+    norms = np.sqrt(np.einsum("ij,ij->j", pre, pre))
     _, e_norm = np.frexp(norms)
     exponents = e_big + e_norm
     return np.where(big > 0, exponents, 0).astype(np.int64)
+
+
+def _power_of_two_exponent(v: np.ndarray) -> int:
+    """The exponent ``e`` such that ``v * 2**-e`` has a 2-norm in [0.5, 1) (0 for zero)."""
+    with np.errstate(over="ignore", under="ignore"):
+        square = float(np.dot(v, v))
+    if 1e-290 < square < 1e290:
+        return math.frexp(math.sqrt(square))[1]
+    return int(_power_of_two_exponents(v[:, None])[0])
+
+
+@functools.lru_cache(maxsize=64)
+def _upper_mask(k: int) -> np.ndarray:
+    """A k x k array of ones on and above the diagonal, zeros below (read only)."""
+    mask = np.triu(np.ones((k, k)))
+    mask.setflags(write=False)
+    return mask
 
 
 def _householder(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -235,6 +257,42 @@ def _apply_qt(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
 
 def _apply_q(qr: np.ndarray, tau: np.ndarray, v: np.ndarray) -> np.ndarray:
     return _apply(qr, tau, v, "N")
+
+
+def _thin_q(qr: np.ndarray, tau: np.ndarray, r: int) -> np.ndarray:
+    """The first ``r`` columns of Q, formed from the packed reflectors (LAPACK ``dorgqr``)."""
+    q, _, info = lapack.dorgqr(qr[:, :r], tau[:r], lwork=max(1, 64 * r))
+    if info != 0:
+        raise ArithmeticError(f"dorgqr failed with info={info}")
+    return q
+
+
+class _Orthogonal:
+    """Q of ``A P = Q R`` applied to vectors.
+
+    Small problems form the thin ``Q_1`` once (two matrix products a use); large ones
+    apply LAPACK's packed reflectors (``dormqr``) and never hold an n x k copy.
+    """
+
+    def __init__(self, qr: np.ndarray, tau: np.ndarray, k: int, explicit: bool):
+        self.qr = qr
+        self.tau = tau
+        self.k = k
+        self.thin = _thin_q(qr, tau, k) if explicit else None
+
+    def leading(self, v: np.ndarray) -> np.ndarray:
+        """``(Q' v)[:k] = Q_1' v``."""
+        if self.thin is not None:
+            return self.thin.T @ v
+        return _apply_qt(self.qr, self.tau, v)[:self.k]
+
+    def span(self, z: np.ndarray) -> np.ndarray:
+        """``Q_1 z``."""
+        if self.thin is not None:
+            return self.thin @ z
+        pad = np.zeros(self.qr.shape[0])
+        pad[:self.k] = z
+        return _apply_q(self.qr, self.tau, pad)
 
 
 def _sequential_kept(b: np.ndarray, tolerance: float) -> list[int]:
@@ -318,20 +376,20 @@ class _Core:
 
 
 def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray | None,
-                 w: np.ndarray | None, centered: bool, qr: np.ndarray, r11: np.ndarray,
-                 pivots: np.ndarray, tau: np.ndarray, kappa: float,
-                 sigma_max: float) -> _Core:
+                 w: np.ndarray | None, centered: bool, q: _Orthogonal, r11: np.ndarray,
+                 pivots: np.ndarray, kappa: float, sigma_max: float) -> _Core:
     k = a.shape[1]
-    z = _apply_qt(qr, tau, ys_w)[:k]
-    bp = solve_triangular(r11, z)
     bs = np.empty(k)
-    bs[pivots] = bp
+    bs[pivots] = solve_triangular(r11, q.leading(ys_w))
     # Residuals in 80-bit arithmetic where that is cheap; large problems keep double
     # (BLAS) residuals unless refinement asks for extended ones.
     small = a.size <= REFINE_ALWAYS_CELLS
     a_ld = a.astype(np.longdouble) if small else None
+    rinv, info = lapack.dtrtri(r11)
+    if info != 0:
+        raise ArithmeticError(f"dtrtri failed with info={info}")
     root = np.empty((k, k))
-    root[pivots] = solve_triangular(r11, np.eye(k))
+    root[pivots] = rinv
     cov = root @ root.T
     rw = _residual(ys_w, a if a_ld is None else a_ld, bs)
     err_b, err_se = _error_bounds(ys_w, bs, rw, cov, kappa, sigma_max)
@@ -341,7 +399,7 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     if err_b > max(err_se, worth):
         if a_ld is None:
             a_ld = a.astype(np.longdouble)
-        bs, last_change, steps = _refine(a, a_ld, qr, tau, r11, pivots, ys_w, bs, rw)
+        bs, last_change, steps = _refine(a_ld, q, r11, pivots, ys_w, bs, rw)
         if steps:
             # A converging refinement leaves an error below its last correction.
             err_b = min(err_b, max(10 * last_change, EPS))
@@ -402,18 +460,24 @@ def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarr
     r_norm = _norm(r)
     b_norm = _norm(bs)
     y_norm = _norm(ys_w)
-    root = np.sqrt(np.diag(cov))
-    row = np.linalg.norm(cov, axis=1)
+    root = np.sqrt(cov.diagonal())
+    row = np.sqrt(np.einsum("ij,ij->i", cov, cov))
     spread = EPS * math.sqrt(k) * (row * sigma_max * r_norm
                                    + root * (sigma_max * b_norm + y_norm))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        err_b = float(np.max(np.where(bs != 0, spread / np.abs(bs), 0.0)))
-    return err_b, EPS * math.sqrt(k) * kappa
+    return _relative_change(spread, bs), EPS * math.sqrt(k) * kappa
 
 
-def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
-            r11: np.ndarray, pivots: np.ndarray, y: np.ndarray, bs: np.ndarray,
-            r0: np.ndarray, steps: int = 4) -> tuple[np.ndarray, float, int]:
+def _relative_change(dx: np.ndarray, x: np.ndarray) -> float:
+    """``max |dx_j| / |x_j|`` over the nonzero ``x_j`` (0 when there are none)."""
+    if x.all():
+        return float(np.max(np.abs(dx) / np.abs(x)))
+    moved = x != 0
+    return float(np.max(np.abs(dx[moved]) / np.abs(x[moved]))) if moved.any() else 0.0
+
+
+def _refine(a_ld: np.ndarray, q: _Orthogonal, r11: np.ndarray, pivots: np.ndarray,
+            y: np.ndarray, bs: np.ndarray, r0: np.ndarray,
+            steps: int = 4) -> tuple[np.ndarray, float, int]:
     """Iterative refinement of the least-squares solution on the augmented system.
 
     ``[I A; A' 0] [r; x] = [y; 0]``, with the residuals ``f = y - r - A x`` and
@@ -423,9 +487,9 @@ def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
     the ``kappa^2 |r|`` term of the error for ``kappa eps < 1``. Returns the refined x,
     the last correction's largest component-wise relative size, and the steps taken.
     """
-    n, k = a.shape
-    x = bs.copy()
-    r = r0.copy()
+    k = a_ld.shape[1]
+    x = bs
+    r = r0
     y_ld = y.astype(np.longdouble)
     last = math.inf
     taken = 0
@@ -433,16 +497,12 @@ def _refine(a: np.ndarray, a_ld: np.ndarray, qr: np.ndarray, tau: np.ndarray,
         f = (y_ld - r - a_ld @ x.astype(np.longdouble)).astype(float)
         g = (-(a_ld.T @ r.astype(np.longdouble))).astype(float)
         h = solve_triangular(r11, g[pivots], trans="T")
-        d = _apply_qt(qr, tau, f)
-        z = d[:k] - h
+        z = q.leading(f) - h
         dx = np.empty(k)
         dx[pivots] = solve_triangular(r11, z)
-        pad = np.zeros(n)
-        pad[:k] = z
-        dr = f - _apply_q(qr, tau, pad)
-        moved = x != 0
-        change = float(np.max(np.abs(dx[moved]) / np.abs(x[moved]))) if moved.any() else 0.0
-        if not np.all(np.isfinite(dx)) or change > 0.5 * last:
+        dr = f - q.span(z)
+        change = _relative_change(dx, x)
+        if not np.isfinite(dx).all() or change > 0.5 * last:
             break
         x = x + dx
         r = r + dr
@@ -564,7 +624,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     sw = None if weights is None else np.sqrt(weights)
     xw = x if sw is None else x * sw[:, None]
     e_col = _power_of_two_exponents(xw)
-    e_y = int(_power_of_two_exponents((y if sw is None else y * sw)[:, None])[0])
+    e_y = _power_of_two_exponent(y if sw is None else y * sw)
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
     # Fortran order from the start: LAPACK factors a copy of it without another.
@@ -593,22 +653,25 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         qr, pivots, tau = _householder(a_kept)
     else:
         a_kept = a
-    rk = np.triu(qr[:len(kept), :len(kept)])
+    rk = qr[:len(kept), :len(kept)] * _upper_mask(len(kept))
     unit = np.empty_like(rk)
     unit[:, pivots] = rk
-    norms = np.linalg.norm(unit, axis=0)
-    unit /= np.where(norms > 0, norms, 1.0)
+    norms = np.sqrt(np.einsum("ij,ij->j", unit, unit))
+    unit /= norms if norms.size and norms.min() > 0 else np.where(norms > 0, norms, 1.0)
     if len(kept):
-        _, singular, vt = np.linalg.svd(unit)
+        _, singular, vt, info = lapack.dgesdd(unit, compute_uv=1, full_matrices=0)
+        if info != 0:
+            _, singular, vt = np.linalg.svd(unit)
         kappa = float(singular[0] / singular[-1])
         # The Frobenius norm bounds |R|_2 from above (by at most sqrt(k)): the error
         # bounds that use it stay on the safe side, without a second SVD.
-        sigma_max = math.sqrt(float(np.sum(rk * rk)))
+        sigma_max = math.sqrt(float(norms @ norms))
     else:
         singular, vt, kappa, sigma_max = np.zeros(0), np.zeros((0, 0)), 1.0, 1.0
 
     if len(kept):
-        core = _double_path(a_kept, ys_w, ys, sw, weights, centered, qr, rk, pivots, tau,
+        q = _Orthogonal(qr, tau, len(kept), explicit=a_kept.size <= REFINE_ALWAYS_CELLS)
+        core = _double_path(a_kept, ys_w, ys, sw, weights, centered, q, rk, pivots,
                             kappa, sigma_max)
         method = "householder_qr"
         if (core.digits < extended_below_digits
@@ -625,6 +688,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
             core = _extended_path(columns, ys, weights, centered, kappa)
             method = "extended_precision"
     else:
+        q = None
         method = "householder_qr"
         core = _Core(np.zeros(0), np.zeros((0, 0)), np.zeros((0, 0)), ys.copy(),
                      _fsum_sq(ys, weights), 0.0,
@@ -634,18 +698,26 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     e_kept = e_col[kept_idx]
     projection = None
     if want_projection:
-        projection = _projection(qr, pivots, tau, len(kept), core.residuals, sw, e_kept, e_y)
-    coefficients = np.full(k, np.nan)
-    root_diagonal = np.full(k, np.nan)
-    covariance = np.full((k, k), np.nan)
+        projection = _projection(qr, pivots, tau, len(kept), core.residuals, sw, e_kept, e_y,
+                                 None if q is None else q.thin)
     with np.errstate(over="ignore"):
-        coefficients[kept_idx] = np.ldexp(core.coefficients, e_y - e_kept)
-        root_diagonal[kept_idx] = np.ldexp(np.sqrt(np.diag(core.covariance)), -e_kept)
-        covariance[np.ix_(kept_idx, kept_idx)] = np.ldexp(
-            core.covariance, -(e_kept[:, None] + e_kept[None, :]))
-        covariance_root = np.full((k, len(kept)), np.nan)
-        covariance_root[kept_idx] = np.ldexp(core.root, -e_kept[:, None])
+        kept_coefficients = np.ldexp(core.coefficients, e_y - e_kept)
+        kept_root_diagonal = np.ldexp(np.sqrt(core.covariance.diagonal()), -e_kept)
+        kept_covariance = np.ldexp(core.covariance, -(e_kept[:, None] + e_kept[None, :]))
+        kept_root = np.ldexp(core.root, -e_kept[:, None])
         residuals = np.ldexp(core.residuals, e_y)
+    if len(kept) == k:
+        coefficients, root_diagonal = kept_coefficients, kept_root_diagonal
+        covariance, covariance_root = kept_covariance, kept_root
+    else:
+        coefficients = np.full(k, np.nan)
+        coefficients[kept_idx] = kept_coefficients
+        root_diagonal = np.full(k, np.nan)
+        root_diagonal[kept_idx] = kept_root_diagonal
+        covariance = np.full((k, k), np.nan)
+        covariance[np.ix_(kept_idx, kept_idx)] = kept_covariance
+        covariance_root = np.full((k, len(kept)), np.nan)
+        covariance_root[kept_idx] = kept_root
     estimable = np.zeros(k, dtype=bool)
     estimable[kept_idx] = True
     return LeastSquares(
@@ -660,18 +732,17 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         right_singular_vectors=vt.T,
         rank_tolerance=rank_tolerance, condition_number=kappa, method=method,
         working_digits=core.working_digits, estimated_correct_digits=core.digits,
-        projection=projection, factor=(qr, tau) if len(kept) else None)
+        projection=projection, factor=(qr, tau) if len(kept) else None,
+        thin_q=None if q is None else q.thin)
 
 
 def _projection(qr: np.ndarray, pivots: np.ndarray, tau: np.ndarray, r: int,
                 residuals: np.ndarray, sw: np.ndarray | None, e_kept: np.ndarray,
-                e_y: int) -> Projection:
+                e_y: int, thin: np.ndarray | None = None) -> Projection:
     n = qr.shape[0]
     if r == 0:
         return Projection(np.zeros((0, n)), np.zeros(n), residuals, e_kept, e_y)
-    q, _, info = lapack.dorgqr(qr[:, :r], tau[:r], lwork=max(1, 64 * r))
-    if info != 0:
-        raise ArithmeticError(f"dorgqr failed with info={info}")
+    q = _thin_q(qr, tau, r) if thin is None else thin
     rinv = solve_triangular(np.triu(qr[:r, :r]), np.eye(r))
     pinv = np.empty((r, n))
     pinv[pivots] = rinv @ q.T
