@@ -106,17 +106,26 @@ def is_perfect_fit(solution: LeastSquares, n: int) -> bool:
     return solution.residual_norm <= 8 * n * EPS * solution.response_norm
 
 
-def _vif(solution: LeastSquares, column_spread: np.ndarray | None) -> np.ndarray:
+def _ratio(b: float, s: float) -> float:
+    """``b / s`` with IEEE semantics (as numpy divides): +-inf for b / 0, NaN for 0 / 0."""
+    if s:
+        return b / s
+    if b != b or b == 0:
+        return math.nan
+    return math.copysign(math.inf, b) * math.copysign(1.0, s)
+
+
+def _vif(solution: LeastSquares, column_spread: np.ndarray | None) -> list[float]:
     """``VIF_j = [(X'WX)^-1]_jj * sum_i w_i (x_ij - xbar_j)^2`` (with an intercept only).
 
     This equals ``1 / (1 - R_j^2)`` from the regression of column j on the others
     (Belsley, Kuh and Welsch 1980, section 3.2).
     """
-    k = solution.coefficients.shape[0]
     if column_spread is None:
-        return np.full(k, np.nan)
-    with np.errstate(over="ignore", invalid="ignore"):
-        return (solution.root_diagonal * column_spread) ** 2
+        return [math.nan] * solution.coefficients.shape[0]
+    # Python floats: a product that overflows is inf, without a warning.
+    return [(r * c) * (r * c) for r, c in zip(solution.root_diagonal.tolist(),
+                                                column_spread.tolist())]
 
 
 def simultaneous_multipliers(method: str, levels: tuple[float, ...], m: int,
@@ -161,72 +170,72 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
     p = solution.rank
     df = n - p
     perfect = is_perfect_fit(solution, n)
-    rn, gn = solution.residual_norm, solution.regression_norm
+    # Scalars as Python floats from here on: their overflow gives inf and their NaN
+    # propagates without numpy's floating-point warnings (and without np.errstate).
+    rn, gn = float(solution.residual_norm), float(solution.regression_norm)
     if centered and p <= 1:
         gn = 0.0  # the intercept-only model fits the mean: nothing is explained
     sigma = rn / math.sqrt(df) if df > 0 else math.nan
     cov = estimate_covariance(solution, covariance, n, sigma, perfect and df > 0)
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        se = cov.standard_errors
-        if df > 0 and not perfect:
-            t = solution.coefficients / se
-            pv = t_two_sided_p(t, df)
-        else:
-            t = pv = np.full(solution.coefficients.shape, np.nan)
-        quantiles = [float(-t_quantile((1.0 - lv) / 2.0, df)) if df > 0 else math.nan
-                     for lv in levels]
-        joint = (simultaneous_multipliers(simultaneous, levels, p, df)
-                 if simultaneous else [])
-        vif = _vif(solution, column_spread)
-    coefficients = []
-    for j, name in enumerate(names):
-        b = float(solution.coefficients[j])
-        s_j = float(se[j])
-        coefficients.append(Coefficient(
-            name=name, estimable=bool(solution.estimable[j]), estimate=b,
-            standard_error=s_j, t_statistic=float(t[j]), p_value=float(pv[j]),
-            intervals=tuple(Interval(lv, b - q * s_j, b + q * s_j)
-                            for lv, q in zip(levels, quantiles)),
-            simultaneous_intervals=tuple(Interval(lv, b - q * s_j, b + q * s_j)
-                                         for lv, q in zip(levels, joint)),
-            vif=float(vif[j])))
+    se = cov.standard_errors.tolist()
+    estimates = solution.coefficients.tolist()
+    k = len(estimates)
+    if df > 0 and not perfect:
+        t = [_ratio(b, s_j) for b, s_j in zip(estimates, se)]
+        pv = [t_two_sided_p(v, df) for v in t]
+    else:
+        t = pv = [math.nan] * k
+    quantiles = [float(-t_quantile((1.0 - lv) / 2.0, df)) if df > 0 else math.nan
+                 for lv in levels]
+    joint = (simultaneous_multipliers(simultaneous, levels, p, df)
+             if simultaneous else [])
+    vif = _vif(solution, column_spread)
+    coefficients = tuple(
+        Coefficient(name, est, b, s_j, t_j, p_j,
+                    tuple([Interval(lv, b - q * s_j, b + q * s_j)
+                           for lv, q in zip(levels, quantiles)]),
+                    tuple([Interval(lv, b - q * s_j, b + q * s_j)
+                           for lv, q in zip(levels, joint)]) if joint else (),
+                    v)
+        for name, est, b, s_j, t_j, p_j, v
+        in zip(names, solution.estimable.tolist(), estimates, se, t, pv, vif))
 
     c = 1 if centered else 0
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        if gn == 0 and rn == 0:
-            r2 = math.nan
-            one_minus = math.nan
-        elif gn == 0:
-            r2, one_minus = 0.0, 1.0
-        else:
-            ratio = rn / gn
-            r2 = 1.0 / (1.0 + ratio * ratio)
-            one_minus = ratio * ratio / (1.0 + ratio * ratio)
-        adj = 1.0 - one_minus * (n - c) / df if df > 0 else math.nan
-        rss = rn * rn
-        if n > 0 and rn > 0:
-            log_lik = (-0.5 * n * (math.log(2 * math.pi) + 2 * math.log(rn) - math.log(n) + 1)
-                       + 0.5 * log_weight_sum)
-        else:
-            log_lik = math.nan
-        n_par = p + 1
-        aic = -2 * log_lik + 2 * n_par
-        bic = -2 * log_lik + math.log(n) * n_par if n > 0 else math.nan
-        dfn = p - c
-        if dfn > 0 and df > 0 and rn > 0 and not perfect:
-            q = gn / rn
-            f_stat = q * q * df / dfn
-            f_p = float(f_upper_p(f_stat, dfn, df))
-        else:
-            f_stat = f_p = math.nan
+    if gn == 0 and rn == 0:
+        r2 = math.nan
+        one_minus = math.nan
+    elif gn == 0:
+        r2, one_minus = 0.0, 1.0
+    else:
+        ratio = rn / gn
+        r2 = 1.0 / (1.0 + ratio * ratio)
+        one_minus = ratio * ratio / (1.0 + ratio * ratio)
+    adj = 1.0 - one_minus * (n - c) / df if df > 0 else math.nan
+    rss = rn * rn
+    if n > 0 and rn > 0:
+        log_lik = (-0.5 * n * (math.log(2 * math.pi) + 2 * math.log(rn) - math.log(n) + 1)
+                   + 0.5 * log_weight_sum)
+    else:
+        log_lik = math.nan
+    n_par = p + 1
+    aic = -2 * log_lik + 2 * n_par
+    bic = -2 * log_lik + math.log(n) * n_par if n > 0 else math.nan
+    dfn = p - c
+    if dfn > 0 and df > 0 and rn > 0 and not perfect:
+        q = gn / rn
+        f_stat = q * q * df / dfn
+        f_p = f_upper_p(f_stat, dfn, df)
+    else:
+        f_stat = f_p = math.nan
+    total = float(solution.total_norm)
     fit = FitStatistics(
         r_squared=r2, adjusted_r_squared=adj, residual_standard_deviation=sigma,
         residual_sum_of_squares=rss, regression_sum_of_squares=gn * gn,
-        total_sum_of_squares=solution.total_norm * solution.total_norm, log_likelihood=log_lik,
+        total_sum_of_squares=total * total, log_likelihood=log_lik,
         aic=aic, bic=bic, centered=centered)
     return Inference(
         n_observations=n, n_parameters=p, residual_df=df,
-        coefficients=tuple(coefficients), fit=fit,
+        coefficients=coefficients, fit=fit,
         overall_f_test=FTest(statistic=f_stat, numerator_df=float(dfn),
                              denominator_df=float(df), p_value=f_p),
         perfect_fit=perfect, covariance=cov, simultaneous=simultaneous)
