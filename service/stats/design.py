@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,8 +20,9 @@ class Design:
 
     Attributes
     ----------
-    matrix : (n, k) array
-        Design columns, the intercept column of ones first when there is one.
+    matrix : (n, k) array, Fortran (column-major) order
+        Design columns, the intercept column of ones first when there is one. Column
+        order is what the factorisation and the per-column sums read.
     response : (n,) array
     weights : (n,) array or None
         Positive weights; None for ordinary least squares.
@@ -72,7 +74,13 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
         were built from model terms
     """
     n = response.shape[0]
-    bad = np.isnan(response) | np.isnan(predictors).any(axis=1)
+    bad = np.isnan(response)
+    # A NaN anywhere makes the plain sum NaN (so can opposite overflows): one pass over
+    # the predictors decides whether the row-by-row test is needed.
+    with np.errstate(over="ignore", invalid="ignore"):
+        suspect = predictors.size and math.isnan(float(predictors.sum()))
+    if suspect:
+        bad |= np.isnan(predictors).any(axis=1)
     if weights is not None:
         bad |= np.isnan(weights)
     keep = ~bad
@@ -83,19 +91,21 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
         zero = int(np.count_nonzero(zero_mask))
         keep &= ~zero_mask
     rows = np.flatnonzero(keep) if (dropped_missing or zero) else np.arange(n)
-    x = predictors[rows] if rows.size != n else predictors
     y = response[rows] if rows.size != n else response
     w = None
     if weights is not None:
         w = weights[rows] if rows.size != n else weights
         if np.all(w == 1.0):
             w = None
+    first = 1 if intercept else 0
+    x = np.empty((rows.size, predictors.shape[1] + first), order="F")
     if intercept:
-        x = np.column_stack([np.ones(x.shape[0]), x])
+        x[:, 0] = 1.0
         names = (INTERCEPT,) + tuple(names)
         if exact is not None:
             exact = exact.with_intercept()
-    return Design(matrix=np.ascontiguousarray(x, dtype=float), response=y, weights=w,
+    x[:, first:] = predictors[rows] if rows.size != n else predictors
+    return Design(matrix=x, response=y, weights=w,
                   names=tuple(names), intercept=intercept, rows_used=rows,
                   rows_dropped_missing=dropped_missing, rows_zero_weight=zero,
                   exact=exact, terms=terms)

@@ -92,7 +92,7 @@ def _column_spread(design: Design) -> np.ndarray | None:
         return None
     x = design.matrix
     w = design.weights
-    big = np.abs(x).max(axis=0)
+    big = np.maximum(x.max(axis=0), -x.min(axis=0)) if x.shape[0] else np.zeros(x.shape[1])
     extreme = not (big.size and 1e-150 < big.min() and big.max() < 1e150)
     if extreme:
         big = np.where(big > 0, big, 1.0)

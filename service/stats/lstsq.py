@@ -180,12 +180,16 @@ def extended_work(n: int, k: int) -> int:
 
 
 def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
-    """Exponents ``e`` such that ``a[:, j] * 2**-e[j]`` has a 2-norm in [0.5, 1)."""
+    """Exponents ``e`` such that ``a[:, j] * 2**-e[j]`` has a 2-norm in [0.5, 1).
+
+    As C ints: numpy's ``ldexp`` takes those directly (64-bit exponents go through a
+    cast that costs several times the scaling itself on a large design).
+    """
     if a.shape[0]:
         squares = np.einsum("ij,ij->j", a, a)
         if squares.size and 1e-290 < squares.min() and squares.max() < 1e290:
             # No square overflowed and no column is zero or tiny: the norms are direct.
-            return np.frexp(np.sqrt(squares))[1].astype(np.int64)
+            return np.frexp(np.sqrt(squares))[1].astype(np.intc)
     big = np.maximum(np.max(a, axis=0), -np.min(a, axis=0)) if a.shape[0] else \
         np.zeros(a.shape[1])
     _, e_big = np.frexp(big)
@@ -193,7 +197,7 @@ def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
     norms = np.sqrt(np.einsum("ij,ij->j", pre, pre))
     _, e_norm = np.frexp(norms)
     exponents = e_big + e_norm
-    return np.where(big > 0, exponents, 0).astype(np.int64)
+    return np.where(big > 0, exponents, 0).astype(np.intc)
 
 
 def _power_of_two_exponent(v: np.ndarray) -> int:
