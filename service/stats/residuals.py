@@ -24,11 +24,14 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special
+from scipy.special import cython_special
 
 from .lstsq import LeastSquares
 
 __all__ = ["ResidualChecks", "Influence", "check_residuals", "influence"]
+
+_PROBS = (0.0, 0.25, 0.5, 0.75, 1.0)
+_chdtrc = cython_special.chdtrc  # chi-square upper tail, scipy.special.chdtrc on floats
 
 
 @dataclass(frozen=True)
@@ -56,25 +59,28 @@ def _weighted(solution: LeastSquares, weights: np.ndarray | None) -> np.ndarray:
     return solution.residuals if weights is None else solution.residuals * np.sqrt(weights)
 
 
-def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool,
+def _breusch_pagan(u: np.ndarray, constant: bool, x: np.ndarray, intercept: bool,
                    solution: LeastSquares | None = None) -> tuple[float, int, float]:
-    n = e.shape[0]
-    u = e * e
+    """Koenker's ``LM = n R^2`` for ``u = e*^2``, already known ``constant`` or not."""
+    n = u.shape[0]
     if solution is not None and solution.factor is not None and solution.rank > 1:
         # With an intercept and no weights the auxiliary regressors are the model's own
-        # columns: the model's QR factor projects u onto them directly.
-        if not np.any(u != u[0]):
-            return math.nan, solution.rank - 1, math.nan
-        fitted = solution.project(u)
-        centred = u - u.mean()
-        ss_tot = float(centred @ centred)
-        spread = fitted - u.mean()
-        lm = n * float(spread @ spread) / ss_tot
+        # columns, the constant among them: the model's QR factor projects onto them,
+        # and the regression sum of squares is |P (u - ubar)|^2 = |Q_1' (u - ubar)|^2.
         rank = solution.rank - 1
-        return lm, rank, float(special.chdtrc(rank, lm))
+        if constant:
+            return math.nan, rank, math.nan
+        centred = u - float(np.add.reduce(u)) / n
+        ss_tot = float(np.dot(centred, centred))
+        if solution.thin_q is not None:
+            coordinates = np.dot(centred, solution.thin_q)
+        else:
+            coordinates = solution.project(centred)
+        lm = n * float(np.dot(coordinates, coordinates)) / ss_tot
+        return lm, rank, _chdtrc(float(rank), lm)
     z = x[:, 1:] if intercept else x
     z = z[:, np.ptp(z, axis=0) > 0] if z.size else z
-    if z.shape[1] == 0 or not np.any(u != u[0]):
+    if z.shape[1] == 0 or constant:
         return math.nan, int(z.shape[1]), math.nan
     scale = np.max(np.abs(z), axis=0)
     a = np.column_stack([np.ones(n), z / scale])
@@ -85,7 +91,23 @@ def _breusch_pagan(e: np.ndarray, x: np.ndarray, intercept: bool,
     ss_tot = float(centred @ centred)
     ss_reg = float((fitted - u.mean()) @ (fitted - u.mean()))
     lm = n * ss_reg / ss_tot
-    return lm, rank, float(special.chdtrc(rank, lm)) if rank > 0 else math.nan
+    return lm, rank, _chdtrc(float(rank), lm) if rank > 0 else math.nan
+
+
+def _quantiles(ordered: np.ndarray) -> tuple[tuple[float, float], ...]:
+    """Quantiles at ``_PROBS`` of sorted values by linear interpolation.
+
+    Position ``h = p (n - 1)``: ``q = x_(floor h) + (h - floor h) (x_(floor h + 1) -
+    x_(floor h))`` (Hyndman and Fan 1996, definition 7; numpy's default).
+    """
+    n = ordered.shape[0]
+    out = []
+    for prob in _PROBS:
+        position = prob * (n - 1)
+        low = math.floor(position)
+        a = ordered.item(low)
+        out.append((prob, a + (position - low) * (ordered.item(min(low + 1, n - 1)) - a)))
+    return tuple(out)
 
 
 def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray | None,
@@ -93,35 +115,39 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
     """The residual summary and the tests of the module docstring."""
     raw = _weighted(solution, weights)
     n = raw.shape[0]
-    probs = (0.0, 0.25, 0.5, 0.75, 1.0)
     ordered = np.sort(raw)
-    position = np.array(probs) * (n - 1)
-    low = np.floor(position).astype(int)
-    high = np.minimum(low + 1, n - 1)
-    values = ordered[low] + (position - low) * (ordered[high] - ordered[low])
-    quantiles = tuple((p, float(q)) for p, q in zip(probs, values))  # linear interpolation
+    quantiles = _quantiles(ordered)
     # Every statistic below is scale-free: work on e / max|e| so that fourth powers of
-    # residuals near 1e100 neither overflow nor underflow.
-    top = float(np.max(np.abs(raw))) if n else 0.0
+    # residuals near 1e100 neither overflow nor underflow. max|e| from the sorted ends
+    # (NaN, sorted last, wins). Scalars are Python floats: no numpy warnings.
+    low, high = (-ordered.item(0), ordered.item(n - 1)) if n else (0.0, 0.0)
+    top = low if low > high else high
+    scaled = 0.0 < top < math.inf
     e = raw / top if top > 0 else raw
-    d = e - e.mean()
-    m2 = float(d @ d) / n
-    with np.errstate(divide="ignore", invalid="ignore"):
-        if m2 > 0:
-            skew = float(np.mean(d ** 3)) / m2 ** 1.5
-            kurt = float(np.mean(d ** 4)) / m2 ** 2
-            jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)
-            jb_p = math.exp(-jb / 2.0)
-        else:
-            skew = kurt = jb = jb_p = math.nan
-        ss = float(e @ e)
-        dw = float(np.sum(np.diff(e) ** 2)) / ss if ss > 0 and n > 1 else math.nan
+    d = e - float(np.add.reduce(e)) / n
+    d2 = d * d
+    m2 = float(np.dot(d, d)) / n
+    if m2 > 0:
+        skew = float(np.dot(d2, d)) / n / m2 ** 1.5
+        kurt = float(np.dot(d2, d2)) / n / m2 ** 2
+        jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)
+        jb_p = math.exp(-jb / 2.0)
+    else:
+        skew = kurt = jb = jb_p = math.nan
+    ss = float(np.dot(e, e))
+    if ss > 0 and n > 1:
+        step = e[1:] - e[:-1]
+        dw = float(np.dot(step, step)) / ss
+    else:
+        dw = math.nan
+    u = e * e
+    # After the scaling max u is exactly 1 (top / top), so u is constant iff min u is 1.
+    constant = (float(np.minimum.reduce(u)) == 1.0 if scaled
+                else not np.any(u != u[0]))
     own_columns = intercept and weights is None and solution.rank == x.shape[1]
-    bp, bp_df, bp_p = _breusch_pagan(e, x, intercept, solution if own_columns else None)
-    return ResidualChecks(quantiles=quantiles, skewness=skew, kurtosis=kurt,
-                          durbin_watson=dw, jarque_bera_statistic=jb,
-                          jarque_bera_p_value=jb_p, breusch_pagan_statistic=bp,
-                          breusch_pagan_df=bp_df, breusch_pagan_p_value=bp_p)
+    bp, bp_df, bp_p = _breusch_pagan(u, constant, x, intercept,
+                                     solution if own_columns else None)
+    return ResidualChecks(quantiles, skew, kurt, dw, jb, jb_p, bp, bp_df, bp_p)
 
 
 def influence(solution: LeastSquares, weights: np.ndarray | None, sigma: float) -> Influence:
