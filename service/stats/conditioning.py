@@ -16,6 +16,7 @@ columns with proportion above 0.5 on it form a collinear set. The design is
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -57,33 +58,29 @@ class Conditioning:
 
 def assess(solution: LeastSquares, names: tuple[str, ...]) -> Conditioning:
     """Rank, condition indexes and collinear sets of the kept design columns."""
-    kept_names = [n for n, e in zip(names, solution.estimable) if e]
-    mu = solution.singular_values
+    mu = solution.singular_values.tolist()
     sets: list[CollinearSet] = []
-    indexes: tuple[float, ...] = ()
-    if mu.size:
-        with np.errstate(divide="ignore"):
-            eta = mu[0] / mu
-        indexes = tuple(float(v) for v in eta)
-        phi = solution.right_singular_vectors ** 2 / mu[None, :] ** 2
-        proportions = phi / phi.sum(axis=1, keepdims=True)
-        for kdx in range(mu.size):
-            if not eta[kdx] > CONDITION_INDEX_LIMIT:
-                continue
-            involved = np.flatnonzero(proportions[:, kdx] > PROPORTION_LIMIT)
-            if involved.size >= 2:
-                sets.append(CollinearSet(
-                    condition_index=float(eta[kdx]),
-                    columns=tuple(kept_names[i] for i in involved),
-                    proportions=tuple(float(proportions[i, kdx]) for i in involved)))
+    # Python floats; mu_1 / 0 is inf (NaN when mu_1 is 0 too), as IEEE division gives.
+    top = mu[0] if mu else 0.0
+    eta = [top / m if m else (math.inf if top > 0 else math.nan) for m in mu]
+    flagged = [kdx for kdx, v in enumerate(eta) if v > CONDITION_INDEX_LIMIT]
+    if flagged:
+        kept_names = [n for n, e in zip(names, solution.estimable.tolist()) if e]
+        v = solution.right_singular_vectors
+        s = solution.singular_values
+        phi = (v * v) / (s * s)
+        proportions = (phi / np.add.reduce(phi, axis=1)[:, None]).tolist()
+        for kdx in flagged:
+            involved = [i for i, row in enumerate(proportions) if row[kdx] > PROPORTION_LIMIT]
+            if len(involved) >= 2:
+                sets.append(CollinearSet(eta[kdx], tuple([kept_names[i] for i in involved]),
+                                         tuple([proportions[i][kdx] for i in involved])))
     if solution.aliases:
         status = "rank_deficient"
     elif solution.condition_number > CONDITION_INDEX_LIMIT:
         status = "ill_conditioned"
     else:
         status = "ok"
-    return Conditioning(
-        status=status, rank=solution.rank, n_columns=len(names),
-        rank_tolerance=solution.rank_tolerance,
-        condition_number=solution.condition_number, condition_indexes=indexes,
-        collinear_sets=tuple(sets), aliased=solution.aliases)
+    return Conditioning(status, solution.rank, len(names), solution.rank_tolerance,
+                        solution.condition_number, tuple(eta), tuple(sets),
+                        solution.aliases)
