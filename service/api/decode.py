@@ -22,7 +22,7 @@ from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, 
                            TermError, expand_terms)
 from .arrays import MAX_POINTED, as_matrix, as_vector, check_unique, invalid
 from .problems import FieldError, pointer
-from .schemas import FitRequestSchema, flatten_errors
+from .schemas import FitRequestSchema, flatten_errors, load_envelope
 
 __all__ = ["FitRequest", "decode_fit", "decode_design", "decode_summary", "fit_options",
            "load_request"]
@@ -324,7 +324,7 @@ def load_request(schema: Schema, body: Any, boolean_literals: int) -> dict[str, 
     if not isinstance(body, dict):
         raise invalid([FieldError("", "the request body must be a JSON object")])
     try:
-        data = schema.load(body)
+        data = load_envelope(schema, body)
     except ValidationError as err:
         errors = flatten_errors(err.messages)
         raise invalid(errors, f"{len(errors)} field(s) of the request are invalid: "

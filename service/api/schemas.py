@@ -8,10 +8,11 @@ through as raw JSON and are checked by numpy in :mod:`service.api.arrays`.
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import Any
 
-from marshmallow import RAISE, Schema, ValidationError, fields, validate, validates_schema
+from marshmallow import RAISE, Schema, ValidationError, fields, missing, validate, validates_schema
 
 from ..stats.covariance import KINDS as COVARIANCE_KINDS
 from ..stats.inference import SIMULTANEOUS
@@ -19,7 +20,8 @@ from ..stats.predict import KINDS as PREDICTION_KINDS
 from ..stats.terms import CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term
 from .problems import FieldError, pointer
 
-__all__ = ["FitRequestSchema", "PredictRequestSchema", "TestRequestSchema", "flatten_errors"]
+__all__ = ["FitRequestSchema", "PredictRequestSchema", "TestRequestSchema", "flatten_errors",
+           "load_envelope"]
 
 
 class StrictBoolean(fields.Field):
@@ -331,6 +333,34 @@ class TestRequestSchema(_Layout):
     model = fields.Nested(ModelSchema)
     hypotheses = fields.List(fields.Nested(HypothesisSchema), required=True,
                              validate=validate.Length(min=1))
+
+
+def load_envelope(schema: Schema, body: dict[str, Any]) -> dict[str, Any]:
+    """``schema.load(body)``, walking only the fields the body holds.
+
+    A request names a few of the envelope's many fields; marshmallow walks every
+    declared one. The load runs on a copy of ``schema`` narrowed (``only``) to the fields
+    present and the required ones, and the defaults of the absent fields are filled in
+    afterwards: the same data and the same errors (the schema-level validators read no
+    defaulted field), at a fraction of the work.
+    """
+    narrow, defaults = _narrowed(schema, frozenset(body.keys() & schema.load_fields.keys()))
+    data = narrow.load(body)
+    for name, default in defaults:
+        data[name] = default() if callable(default) else default
+    return data
+
+
+@functools.lru_cache(maxsize=256)
+def _narrowed(schema: Schema, present: frozenset[str]
+              ) -> tuple[Schema, tuple[tuple[str, Any], ...]]:
+    """The copy of ``schema`` for bodies holding the fields ``present``, and the
+    (name, default) pairs of the absent fields that have a default."""
+    walked = tuple(name for name, f in schema.load_fields.items()
+                   if name in present or f.required)
+    defaults = tuple((name, f.load_default) for name, f in schema.load_fields.items()
+                     if name not in walked and f.load_default is not missing)
+    return type(schema)(only=walked), defaults
 
 
 def flatten_errors(messages: Any, prefix: tuple[str | int, ...] = ()) -> list[FieldError]:
