@@ -20,6 +20,7 @@ All on the weighted residuals ``e*_i = sqrt(w_i) (y_i - x_i b)``, in row order.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -59,19 +60,25 @@ def _weighted(solution: LeastSquares, weights: np.ndarray | None) -> np.ndarray:
     return solution.residuals if weights is None else solution.residuals * np.sqrt(weights)
 
 
-def _breusch_pagan(u: np.ndarray, constant: bool, x: np.ndarray, intercept: bool,
+def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
                    solution: LeastSquares | None = None) -> tuple[float, int, float]:
-    """Koenker's ``LM = n R^2`` for ``u = e*^2``, already known ``constant`` or not."""
+    """Koenker's ``LM = n R^2`` for ``u = e*^2`` of the given mean, ``e*`` scaled to
+    ``max |e*| = 1``.
+
+    With that scaling ``max u`` is exactly 1, so u is constant exactly when
+    ``sum (u - mean)^2`` is 0 (otherwise some ``1 - mean`` is at least half an ulp of 1,
+    whose square does not underflow): the test is then undefined (NaN).
+    """
     n = u.shape[0]
+    centred = u - mean
+    ss_tot = float(np.dot(centred, centred))
     if solution is not None and solution.factor is not None and solution.rank > 1:
         # With an intercept and no weights the auxiliary regressors are the model's own
         # columns, the constant among them: the model's QR factor projects onto them,
         # and the regression sum of squares is |P (u - ubar)|^2 = |Q_1' (u - ubar)|^2.
         rank = solution.rank - 1
-        if constant:
+        if ss_tot == 0:
             return math.nan, rank, math.nan
-        centred = u - float(np.add.reduce(u)) / n
-        ss_tot = float(np.dot(centred, centred))
         if solution.thin_q is not None:
             coordinates = np.dot(centred, solution.thin_q)
         else:
@@ -80,18 +87,26 @@ def _breusch_pagan(u: np.ndarray, constant: bool, x: np.ndarray, intercept: bool
         return lm, rank, _chdtrc(float(rank), lm)
     z = x[:, 1:] if intercept else x
     z = z[:, np.ptp(z, axis=0) > 0] if z.size else z
-    if z.shape[1] == 0 or constant:
+    if z.shape[1] == 0 or ss_tot == 0:
         return math.nan, int(z.shape[1]), math.nan
     scale = np.max(np.abs(z), axis=0)
     a = np.column_stack([np.ones(n), z / scale])
     coef, _, rank_a, _ = np.linalg.lstsq(a, u, rcond=None)
     rank = int(rank_a) - 1
-    fitted = a @ coef
-    centred = u - u.mean()
-    ss_tot = float(centred @ centred)
-    ss_reg = float((fitted - u.mean()) @ (fitted - u.mean()))
-    lm = n * ss_reg / ss_tot
+    spread = a @ coef - mean
+    lm = n * float(np.dot(spread, spread)) / ss_tot
     return lm, rank, _chdtrc(float(rank), lm) if rank > 0 else math.nan
+
+
+@functools.lru_cache(maxsize=64)
+def _quantile_positions(n: int) -> tuple[tuple[float, int, float, int], ...]:
+    """``(p, floor h, h - floor h, min(floor h + 1, n - 1))`` for ``h = p (n - 1)``."""
+    out = []
+    for prob in _PROBS:
+        position = prob * (n - 1)
+        low = math.floor(position)
+        out.append((prob, low, position - low, min(low + 1, n - 1)))
+    return tuple(out)
 
 
 def _quantiles(ordered: np.ndarray) -> tuple[tuple[float, float], ...]:
@@ -100,13 +115,11 @@ def _quantiles(ordered: np.ndarray) -> tuple[tuple[float, float], ...]:
     Position ``h = p (n - 1)``: ``q = x_(floor h) + (h - floor h) (x_(floor h + 1) -
     x_(floor h))`` (Hyndman and Fan 1996, definition 7; numpy's default).
     """
-    n = ordered.shape[0]
+    item = ordered.item
     out = []
-    for prob in _PROBS:
-        position = prob * (n - 1)
-        low = math.floor(position)
-        a = ordered.item(low)
-        out.append((prob, a + (position - low) * (ordered.item(min(low + 1, n - 1)) - a)))
+    for prob, low, fraction, high in _quantile_positions(ordered.shape[0]):
+        a = item(low)
+        out.append((prob, a + fraction * (item(high) - a)))
     return tuple(out)
 
 
@@ -122,7 +135,6 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
     # (NaN, sorted last, wins). Scalars are Python floats: no numpy warnings.
     low, high = (-ordered.item(0), ordered.item(n - 1)) if n else (0.0, 0.0)
     top = low if low > high else high
-    scaled = 0.0 < top < math.inf
     e = raw / top if top > 0 else raw
     d = e - float(np.add.reduce(e)) / n
     d2 = d * d
@@ -140,12 +152,9 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
         dw = float(np.dot(step, step)) / ss
     else:
         dw = math.nan
-    u = e * e
-    # After the scaling max u is exactly 1 (top / top), so u is constant iff min u is 1.
-    constant = (float(np.minimum.reduce(u)) == 1.0 if scaled
-                else not np.any(u != u[0]))
     own_columns = intercept and weights is None and solution.rank == x.shape[1]
-    bp, bp_df, bp_p = _breusch_pagan(u, constant, x, intercept,
+    # sum u = sum e^2 = ss: the mean of the squares without another pass.
+    bp, bp_df, bp_p = _breusch_pagan(e * e, ss / n, x, intercept,
                                      solution if own_columns else None)
     return ResidualChecks(quantiles, skew, kurt, dw, jb, jb_p, bp, bp_df, bp_p)
 
