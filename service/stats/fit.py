@@ -109,6 +109,7 @@ def _column_spread(design: Design) -> np.ndarray | None:
         squares = np.einsum("i,ij,ij->j", w, xs, xs)
     ss = squares - sums * sums / total
     lost = ss <= 1e-6 * squares
+    lost[0] = False  # the intercept: no spread, and no VIF
     if lost.any():
         cols = np.flatnonzero(lost)
         dev = xs[:, cols] - sums[cols] / total

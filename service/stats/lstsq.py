@@ -40,6 +40,7 @@ from scipy.linalg import lapack
 __all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "extended_work", "solve"]
 
 EPS = float(np.finfo(float).eps)
+LONG_EPS = float(np.finfo(np.longdouble).eps)
 FULL_DIGITS = 15.9
 SMALL_RANK_TOLERANCE = 4 * EPS
 REFINE_ALWAYS_CELLS = 100_000
@@ -430,7 +431,7 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
                    EPS * math.sqrt(k) * (sigma_max * b_norm + y_norm + kappa * r_norm))
         relative_move = move / r_norm
         # Rounding of y - A b: 80-bit when a long-double copy was used, else double.
-        res_eps = float(np.finfo(np.longdouble).eps) if a_ld is not None else EPS
+        res_eps = LONG_EPS if a_ld is not None else EPS
         err_sigma = (res_eps * (y_norm + sigma_max * b_norm) / r_norm
                      + 0.5 * relative_move * relative_move)
     else:
@@ -474,7 +475,7 @@ def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarr
 def _relative_change(dx: np.ndarray, x: np.ndarray) -> float:
     """``max |dx_j| / |x_j|`` over the nonzero ``x_j`` (0 when there are none)."""
     if x.all():
-        return float(np.max(np.abs(dx) / np.abs(x)))
+        return float((np.abs(dx) / np.abs(x)).max())
     moved = x != 0
     return float(np.max(np.abs(dx[moved]) / np.abs(x[moved]))) if moved.any() else 0.0
 
