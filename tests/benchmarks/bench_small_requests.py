@@ -4,9 +4,9 @@
 
 Both servers run side by side in one run, on the same gunicorn configuration: linfer
 through `linfer serve --workers 2` (service/gunicorn_config.py: sync workers), the bare
-app through ``gunicorn -w 2 -k sync``. The bare app (defined below) parses the same body
-with orjson and returns a fixed small JSON object, so the difference is the work linfer
-does per request. Load alternates between the two for a few rounds (wrk if installed,
+app through ``gunicorn -c python:service.gunicorn_config -w 2``. The bare app (defined
+below) parses the same body with orjson and returns a fixed small JSON object, so the
+difference is the work linfer does per request. Load alternates between the two for a few rounds (wrk if installed,
 else a bounded Python client); the figures are medians over the rounds.
 
 Goal from the issue "Serving for real": linfer's requests/s at least 0.7 x the bare
@@ -143,7 +143,9 @@ def main() -> None:
     from e2e.test_load import post
 
     body = request_body()
-    bare_args = ["-w", "2", "-k", "sync", "--no-control-socket"]
+    # The bare app under the very same gunicorn settings as linfer (sync workers,
+    # preloaded app, garbage-collector freeze before fork), two workers.
+    bare_args = ["-c", "python:service.gunicorn_config", "-w", "2"]
     runs: dict[str, list] = {"linfer": [], "bare": []}
     with linfer_server(label="small-linfer") as linfer, \
             gunicorn_server("bench_small_requests:create_bare_app()", bare_args,
@@ -178,7 +180,7 @@ def main() -> None:
     md = "\n".join([
         f"# Small requests: /v1/fit {ROWS} x {PREDICTORS} vs a bare Flask endpoint",
         "",
-        f"Both on gunicorn, 2 sync workers; load {runs['linfer'][0].tool}, "
+        f"Both on gunicorn with service/gunicorn_config.py, 2 sync workers; load {runs['linfer'][0].tool}, "
         f"{args.connections} connections, {args.rounds} alternating rounds of "
         f"{args.seconds:g} s (medians); body {len(body)} bytes.",
         "",
