@@ -23,7 +23,13 @@ __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "in
 SIMULTANEOUS = ("bonferroni", "scheffe")
 
 
-@dataclass(frozen=True)
+# The table's dataclasses are frozen, and their generated __init__ sets each field
+# through object.__setattr__ (past the frozen __setattr__), several times slower than
+# filling the instance dict; a request makes a few dozen of these fields. So Interval
+# and Coefficient spell out an __init__ that fills the dict: same fields, same order.
+
+
+@dataclass(frozen=True, init=False)
 class Interval:
     """A two-sided confidence interval at ``level``."""
 
@@ -31,8 +37,14 @@ class Interval:
     lower: float
     upper: float
 
+    def __init__(self, level: float, lower: float, upper: float) -> None:
+        fields = self.__dict__
+        fields["level"] = level
+        fields["lower"] = lower
+        fields["upper"] = upper
 
-@dataclass(frozen=True)
+
+@dataclass(frozen=True, init=False)
 class Coefficient:
     """One row of the coefficient table.
 
@@ -50,6 +62,20 @@ class Coefficient:
     intervals: tuple[Interval, ...]
     simultaneous_intervals: tuple[Interval, ...]
     vif: float
+
+    def __init__(self, name: str, estimable: bool, estimate: float, standard_error: float,
+                 t_statistic: float, p_value: float, intervals: tuple[Interval, ...],
+                 simultaneous_intervals: tuple[Interval, ...], vif: float) -> None:
+        fields = self.__dict__
+        fields["name"] = name
+        fields["estimable"] = estimable
+        fields["estimate"] = estimate
+        fields["standard_error"] = standard_error
+        fields["t_statistic"] = t_statistic
+        fields["p_value"] = p_value
+        fields["intervals"] = intervals
+        fields["simultaneous_intervals"] = simultaneous_intervals
+        fields["vif"] = vif
 
 
 @dataclass(frozen=True)
