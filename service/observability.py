@@ -16,6 +16,7 @@ import logging
 import os
 import sys
 import time
+from typing import Any
 
 import orjson
 from flask import Flask, Response, g, request
@@ -38,38 +39,104 @@ access_log = logging.getLogger("linfer.access")
 
 def record_shape(rows: int, columns: int) -> None:
     """Note the size of this request's design for the metrics and the access log."""
-    g.rows = rows
-    g.columns = columns
+    ctx = g._get_current_object()
+    ctx.rows = rows
+    ctx.columns = columns
     _ROWS.observe(rows)
     _COLUMNS.observe(columns)
 
 
-def _endpoint() -> str:
-    rule = request.url_rule
-    return rule.rule if rule is not None else "unmatched"
+# The labelled children, found once per label values (what ``labels()`` looks up under
+# a lock on every call); prometheus_client keeps them valid across gunicorn's fork.
+_request_counters: dict[tuple[str, int], Any] = {}
+_latency_histograms: dict[str, Any] = {}
+# The access log's time to the second, formatted once a second.
+_stamp: list = [None, ""]
 
 
 def _start() -> None:
     g.started = time.perf_counter()
 
 
+def _now() -> str:
+    second = int(time.time())
+    if _stamp[0] != second:
+        _stamp[:] = [second, time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(second))]
+    return _stamp[1]
+
+
 def _finish(response: Response) -> Response:
-    elapsed = time.perf_counter() - getattr(g, "started", time.perf_counter())
-    endpoint = _endpoint()
-    _REQUESTS.labels(endpoint=endpoint, status=str(response.status_code)).inc()
-    _LATENCY.labels(endpoint=endpoint).observe(elapsed)
+    ctx = g._get_current_object()
+    req = request._get_current_object()
+    elapsed = time.perf_counter() - getattr(ctx, "started", time.perf_counter())
+    rule = req.url_rule
+    endpoint = rule.rule if rule is not None else "unmatched"
+    status = response.status_code
+    counter = _request_counters.get((endpoint, status))
+    if counter is None:
+        counter = _request_counters[endpoint, status] = _REQUESTS.labels(
+            endpoint=endpoint, status=str(status))
+    counter.inc()
+    latency = _latency_histograms.get(endpoint)
+    if latency is None:
+        latency = _latency_histograms[endpoint] = _LATENCY.labels(endpoint=endpoint)
+    latency.observe(elapsed)
     if access_log.isEnabledFor(logging.INFO):
-        access_log.info(orjson.dumps({
-            "time": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-            "request_id": getattr(g, "request_id", None),
-            "method": request.method,
+        line = orjson.dumps({
+            "time": _now(),
+            "request_id": getattr(ctx, "request_id", None),
+            "method": req.method,
             "endpoint": endpoint,
-            "status": response.status_code,
-            "rows": getattr(g, "rows", None),
-            "columns": getattr(g, "columns", None),
+            "status": status,
+            "rows": getattr(ctx, "rows", None),
+            "columns": getattr(ctx, "columns", None),
             "duration_ms": round(elapsed * 1000, 3),
-        }).decode())
+        }).decode()
+        handler = _own_handler()
+        if handler is not None:
+            handler.write_line(line)
+        else:
+            access_log.handle(_record(line))
     return response
+
+
+def _record(line: str) -> logging.LogRecord:
+    """The record ``access_log.info(line)`` makes, less its stack walk for the caller
+    (the record names _finish as its source)."""
+    return access_log.makeRecord(access_log.name, logging.INFO, __file__,
+                                 _finish.__code__.co_firstlineno, line, (), None, "_finish")
+
+
+class _LineHandler(logging.StreamHandler):
+    """The access log's handler: each message on a line of its own (stderr)."""
+
+    def write_line(self, line: str) -> None:
+        """Write ``line`` as ``handle`` of its record writes it (the format is the bare
+        message), without making the record."""
+        with self.lock:
+            try:
+                self.stream.write(line + self.terminator)
+                self.flush()
+            except RecursionError:
+                raise
+            except Exception:
+                self.handleError(_record(line))
+
+
+_PLAIN = logging.Formatter("%(message)s")
+
+
+def _own_handler() -> _LineHandler | None:
+    """The access log's own handler when it is the only way out for its lines (no
+    filters, no other handlers, no propagation, the bare format); else None."""
+    handlers = access_log.handlers
+    if len(handlers) != 1 or access_log.propagate or access_log.filters:
+        return None
+    handler = handlers[0]
+    if (type(handler) is _LineHandler and handler.formatter is _PLAIN
+            and not handler.filters and handler.level <= logging.INFO):
+        return handler
+    return None
 
 
 def metrics() -> Response:
@@ -85,8 +152,8 @@ def metrics() -> Response:
 
 def _configure_access_log() -> None:
     if not access_log.handlers:
-        handler = logging.StreamHandler(sys.stderr)
-        handler.setFormatter(logging.Formatter("%(message)s"))
+        handler = _LineHandler(sys.stderr)
+        handler.setFormatter(_PLAIN)
         access_log.addHandler(handler)
         access_log.setLevel(logging.INFO)
         access_log.propagate = False

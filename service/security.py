@@ -80,6 +80,12 @@ def _cors_headers(response: Response) -> Response:
 
 
 def init_app(app: Flask) -> None:
-    app.before_request(_preflight)
-    app.before_request(_authenticate)
-    app.after_request(_cors_headers)
+    # Each hook does nothing without its setting, and the settings of an app are fixed
+    # when it is built: a hook is registered only when its setting is on.
+    settings = app.config["LINFER_SETTINGS"]
+    if settings.origin_list:
+        app.before_request(_preflight)
+    if settings.token_list:
+        app.before_request(_authenticate)
+    if settings.origin_list:
+        app.after_request(_cors_headers)

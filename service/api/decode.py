@@ -82,6 +82,8 @@ def _reject_missing(arrays: list[tuple[np.ndarray, tuple[str | int, ...], bool]]
     total = 0
     for arr, where, _ in arrays:
         mask = np.isnan(arr)
+        if not mask.any():
+            continue
         total += int(np.count_nonzero(mask))
         for index in zip(*np.nonzero(mask)):
             if len(errors) < MAX_POINTED:
@@ -125,8 +127,9 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
         if w is not None:
             arrays.append((w, ("weights",), False))
         _reject_missing(arrays)
-    where = {name: (pointer("column_names", j) if "column_names" in data
-                    else pointer("design_matrix", 0, j)) for j, name in enumerate(names)}
+    # pointer("column_names", j) or pointer("design_matrix", 0, j): nothing to escape.
+    prefix = "/column_names/" if "column_names" in data else "/design_matrix/0/"
+    where = {name: f"{prefix}{j}" for j, name in enumerate(names)}
     return x, y, w, names, where, None, ()
 
 

@@ -10,6 +10,7 @@ import numpy as np
 
 import orjson
 from flask import Blueprint, Flask, Response, current_app, request
+from werkzeug.exceptions import ClientDisconnected
 
 from ..observability import record_shape
 from ..settings import Settings
@@ -67,24 +68,33 @@ def _drain(length: int) -> None:
 
 def _read_body() -> bytes:
     """The request body, refusing one over LINFER_MAX_BODY_BYTES with 413."""
+    req = request._get_current_object()
     limit = current_app.config["MAX_CONTENT_LENGTH"]
-    if request.content_length is not None and request.content_length > limit:
+    length = req.content_length
+    if length is not None and length > limit:
         # Read (and drop) a moderately oversized body before answering, so that a
         # client still sending it sees the 413 instead of a broken pipe; a body
         # larger than DRAIN_BYTES is refused without being read.
-        if request.content_length <= DRAIN_BYTES:
-            _drain(request.content_length)
+        if length <= DRAIN_BYTES:
+            _drain(length)
         raise ApiProblem(413, "Content Too Large", body_limit_detail(), "content_too_large")
-    if request.content_length is None:
+    if length is None:
         # A chunked body has no length to refuse up front: read one byte past the
         # limit straight from the server's stream, so a longer body is a 413 and
         # never a silently truncated document.
-        raw = request.environ["wsgi.input"].read(limit + 1)
+        raw = req.environ["wsgi.input"].read(limit + 1)
         if len(raw) > limit:
             raise ApiProblem(413, "Content Too Large", body_limit_detail(),
                              "content_too_large")
         return raw
-    return request.get_data(cache=False)
+    # What request.get_data(cache=False) reads, without its stream wrappers: the
+    # announced length, and a body cut short is a client that went away (400), unless
+    # the server itself ends the stream (wsgi.input_terminated), as werkzeug has it.
+    environ = req.environ
+    raw = environ["wsgi.input"].read(length)
+    if len(raw) < length and "wsgi.input_terminated" not in environ:
+        raise ClientDisconnected()
+    return raw
 
 
 def _json_body() -> tuple[object, int]:
@@ -163,20 +173,36 @@ def _request() -> tuple[Settings, object, int]:
     return current_app.config["LINFER_SETTINGS"], body, booleans
 
 
+# Accept headers that ask for JSON (or anything) in the words clients send most:
+# the negotiation below would pick JSON for each of them.
+_JSON_ACCEPTS = frozenset({"", "*/*", "application/json", "application/*",
+                           "application/json, */*", "application/json, text/plain, */*"})
+
+
+def _wants_csv(req) -> bool:
+    """Whether the caller's Accept header prefers the coefficient table as CSV."""
+    if req.environ.get("HTTP_ACCEPT", "") in _JSON_ACCEPTS:
+        return False
+    return req.accept_mimetypes.best_match(["application/json", CSV_MEDIA_TYPE]) \
+        == CSV_MEDIA_TYPE
+
+
 @bp.post("/v1/fit")
 def fit_endpoint() -> Response:
-    if request.mimetype in (CSV_MEDIA_TYPE, ARROW_MEDIA_TYPE):
+    req_ = request._get_current_object()
+    mimetype = req_.mimetype
+    if mimetype in (CSV_MEDIA_TYPE, ARROW_MEDIA_TYPE):
         # A table as CSV or Arrow: it becomes the table layout, options come from the
         # query string, and problems point into that table (/table/<column>/<row>).
         settings = current_app.config["LINFER_SETTINGS"]
-        reader = table_body_from_csv if request.mimetype == CSV_MEDIA_TYPE \
+        reader = table_body_from_csv if mimetype == CSV_MEDIA_TYPE \
             else table_body_from_arrow
-        body, booleans = reader(_read_body(), request.args), 0
+        body, booleans = reader(_read_body(), req_.args), 0
     else:
-        if request.args:
+        if req_.environ.get("QUERY_STRING") and req_.args:
             raise invalid([FieldError("", f"query parameter {name!r} is for CSV and Arrow "
                                       "bodies; with JSON, send the option in the body")
-                           for name in request.args])
+                           for name in req_.args])
         settings, body, booleans = _request()
     req = decode_fit(body, settings, booleans)
     if req.summary is not None:
@@ -188,8 +214,7 @@ def fit_endpoint() -> Response:
         document["rows"] = encode_rows(result)
     if req.return_model:
         document["model"] = encode_model(result.model)
-    wanted = request.accept_mimetypes.best_match(["application/json", CSV_MEDIA_TYPE])
-    if wanted == CSV_MEDIA_TYPE:
+    if _wants_csv(req_):
         return Response(coefficients_csv(document), mimetype=CSV_MEDIA_TYPE)
     return json_response(document)
 
