@@ -75,14 +75,30 @@ def _finite(out: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:
     return out
 
 
-def _convert(value: object, where: tuple[str | int, ...], strict: bool) -> np.ndarray:
+def _holds_booleans(value: list, arr: np.ndarray) -> bool:
+    """Whether a numeric array came from a list with ``true`` or ``false`` among its numbers.
+
+    numpy reads a boolean among numbers as 1 or 0, so only the cells equal to 0 or 1
+    can hold one: their Python values are looked at, nothing else.
+    """
+    flat = arr.reshape(-1)
+    candidates = np.flatnonzero((flat == 0) | (flat == 1))
+    if not candidates.size:
+        return False
+    if arr.ndim == 1:
+        return any(type(value[i]) is bool for i in candidates.tolist())
+    width = arr.shape[1]
+    return any(type(value[i // width][i % width]) is bool for i in candidates.tolist())
+
+
+def _convert(value: list, where: tuple[str | int, ...]) -> np.ndarray:
     try:
         arr = np.array(value)
     except (ValueError, OverflowError):
         arr = np.array(value, dtype=object) if _is_rectangular(value) else None
         if arr is None:
             raise _ragged(value, where) from None
-    if arr.dtype.kind in "fiu" and not strict:
+    if arr.dtype.kind in "fiu" and arr.ndim <= 2 and not _holds_booleans(value, arr):
         return _finite(arr.astype(float, copy=False), where)
     if arr.dtype.kind == "b":
         raise invalid([FieldError(pointer(*where), "must hold numbers, not booleans")])
@@ -115,12 +131,11 @@ def _ragged(value: object, where: tuple[str | int, ...]) -> ApiProblem:
     return invalid([FieldError(pointer(*where), "must be a flat list of numbers")])
 
 
-def as_vector(value: object, where: tuple[str | int, ...], strict: bool = False) -> np.ndarray:
+def as_vector(value: object, where: tuple[str | int, ...]) -> np.ndarray:
     """A JSON list of numbers (or nulls) as a float array; a 422 problem otherwise.
 
-    numpy reads ``true`` among numbers as 1.0; ``strict`` (set when the body holds a
-    boolean literal outside the envelope's own flags) takes the slower path that
-    looks at every value's type, so a boolean is pointed at instead.
+    numpy reads ``true`` among numbers as 1.0: a list holding one takes the slower path
+    that looks at every value's type, so the boolean is pointed at instead.
     """
     if isinstance(value, np.ndarray) and value.dtype == np.float64 and value.ndim == 1:
         # A column already read by a table parser (CSV, Arrow): NaN is a missing value.
@@ -131,19 +146,19 @@ def as_vector(value: object, where: tuple[str | int, ...], strict: bool = False)
         raise invalid([FieldError(pointer(*where), "must be a list of numbers")])
     if not value:
         raise invalid([FieldError(pointer(*where), "must not be empty")])
-    arr = _convert(value, where, strict)
+    arr = _convert(value, where)
     if arr.ndim != 1:
         raise invalid([FieldError(pointer(*where), "must be a flat list of numbers")])
     return arr
 
 
-def as_matrix(value: object, where: tuple[str | int, ...], strict: bool = False) -> np.ndarray:
+def as_matrix(value: object, where: tuple[str | int, ...]) -> np.ndarray:
     """A JSON list of rows (lists of numbers or nulls) as an (n, k) float array."""
     if not isinstance(value, list) or (value and not isinstance(value[0], list)):
         raise invalid([FieldError(pointer(*where), "must be a list of rows, each a list of numbers")])
     if not value:
         raise invalid([FieldError(pointer(*where), "must not be empty")])
-    arr = _convert(value, where, strict)
+    arr = _convert(value, where)
     if arr.ndim != 2:
         if arr.ndim == 1 and arr.dtype == object:
             raise _ragged(value, where)

@@ -110,8 +110,8 @@ def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool) -> list[str
 
 
 def _matrix_layout(data: dict[str, Any], settings: Settings):
-    x = as_matrix(data["design_matrix"], ("design_matrix",), data["_strict"])
-    y = as_vector(data["response"], ("response",), data["_strict"])
+    x = as_matrix(data["design_matrix"], ("design_matrix",))
+    y = as_vector(data["response"], ("response",))
     n, m = x.shape
     if y.shape[0] != n:
         raise invalid([FieldError("/response", f"response has {y.shape[0]} values, "
@@ -120,7 +120,7 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
     names = _names_for_matrix(data, m, data["intercept"])
     w = None
     if "weights" in data:
-        w = as_vector(data["weights"], ("weights",), data["_strict"])
+        w = as_vector(data["weights"], ("weights",))
         _check_weights(w, n, ("weights",))
     if data["missing"] == "reject":
         arrays = [(x, ("design_matrix",), True), (y, ("response",), False)]
@@ -161,12 +161,12 @@ def _table_layout(data: dict[str, Any], settings: Settings):
         raise invalid([FieldError(pointer("table", INTERCEPT),
                                   "'intercept' names the column of ones the service adds; "
                                   "rename the column or set intercept to false")])
-    y = as_vector(table[response], ("table", response), data["_strict"])
+    y = as_vector(table[response], ("table", response))
     n = y.shape[0]
     _check_limits(n, len(predictors) + int(data["intercept"]), "/table", settings)
     columns = []
     for name in predictors:
-        col = as_vector(table[name], ("table", name), data["_strict"])
+        col = as_vector(table[name], ("table", name))
         if col.shape[0] != n:
             raise invalid([FieldError(pointer("table", name), f"has {col.shape[0]} values; "
                                       f"the response column {response!r} has {n}")])
@@ -174,10 +174,10 @@ def _table_layout(data: dict[str, Any], settings: Settings):
     labels = {name: _labels(table[name], name, n) for name in categorical}
     w = None
     if weight_col is not None:
-        w = as_vector(table[weight_col], ("table", weight_col), data["_strict"])
+        w = as_vector(table[weight_col], ("table", weight_col))
         _check_weights(w, n, ("table", weight_col))
     elif "weights" in data:
-        w = as_vector(data["weights"], ("weights",), data["_strict"])
+        w = as_vector(data["weights"], ("weights",))
         _check_weights(w, n, ("weights",))
     if data["missing"] == "reject":
         arrays = [(col, ("table", name), False) for col, name in zip(columns, predictors)]
@@ -271,15 +271,6 @@ def _labels(values: Any, name: str, n: int) -> list:
     return values
 
 
-def _strict(body: dict[str, Any], boolean_literals: int) -> bool:
-    """More boolean literals in the bytes than the envelope's flags: check values one by one."""
-    flags = sum(isinstance(v, bool) for v in body.values())
-    model = body.get("model")
-    if isinstance(model, dict):
-        flags += sum(isinstance(v, bool) for v in model.values())
-    return boolean_literals > flags
-
-
 def decode_design(data: dict[str, Any], body: dict[str, Any],
                   settings: Settings) -> tuple[Design, dict[str, str]]:
     """The design from either data layout, and a JSON pointer per design column."""
@@ -324,7 +315,7 @@ def fit_options(data: dict[str, Any], settings: Settings) -> FitOptions:
         include_influence="influence" in data.get("include", ()))
 
 
-def load_request(schema: Schema, body: Any, boolean_literals: int) -> dict[str, Any]:
+def load_request(schema: Schema, body: Any) -> dict[str, Any]:
     """The envelope of ``body`` loaded by ``schema``; 422 with every field error at once."""
     if not isinstance(body, dict):
         raise invalid([FieldError("", "the request body must be a JSON object")])
@@ -334,14 +325,12 @@ def load_request(schema: Schema, body: Any, boolean_literals: int) -> dict[str, 
         errors = flatten_errors(err.messages)
         raise invalid(errors, f"{len(errors)} field(s) of the request are invalid: "
                       + "; ".join(f"{e.pointer or '/'} {e.message}" for e in errors[:3]))
-    data["_strict"] = _strict(body, boolean_literals)
     return data
 
 
 def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
     """The validated summary from its loaded envelope (numbers checked by numpy)."""
     s = data["summary"]
-    strict = data["_strict"]
     names = s["column_names"]
     seen = check_unique(names, ("summary", "column_names"))
     if INTERCEPT in seen and seen[INTERCEPT] != 0:
@@ -360,11 +349,11 @@ def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
                                   "has none")])
     fields_: dict[str, Any] = {}
     if s["kind"] == "triangular":
-        fields_["r_factor"] = as_matrix(s["r_factor"], ("summary", "r_factor"), strict)
+        fields_["r_factor"] = as_matrix(s["r_factor"], ("summary", "r_factor"))
         arrays = [("r_factor", fields_["r_factor"])]
     else:
-        fields_["xtx"] = as_matrix(s["xtx"], ("summary", "xtx"), strict)
-        fields_["xty"] = as_vector(s["xty"], ("summary", "xty"), strict)
+        fields_["xtx"] = as_matrix(s["xtx"], ("summary", "xtx"))
+        fields_["xty"] = as_vector(s["xty"], ("summary", "xty"))
         fields_["yty"] = s["yty"]
         arrays = [("xtx", fields_["xtx"]), ("xty", fields_["xty"])]
     for name, arr in arrays:
@@ -376,13 +365,9 @@ def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
                    intercept=bool(names) and names[0] == INTERCEPT, **fields_)
 
 
-def decode_fit(body: Any, settings: Settings, boolean_literals: int = 0) -> FitRequest:
-    """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault.
-
-    ``boolean_literals`` counts ``true`` and ``false`` in the raw body; when there are
-    more than the envelope's own flags, the bulk numbers are checked value by value.
-    """
-    data = load_request(_SCHEMA, body, boolean_literals)
+def decode_fit(body: Any, settings: Settings) -> FitRequest:
+    """Validate a /v1/fit body; raise a 422 :class:`ApiProblem` with pointers on any fault."""
+    data = load_request(_SCHEMA, body)
     options = fit_options(data, settings)
     include = tuple(data.get("include", ()))
     if "summary" in data:

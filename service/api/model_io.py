@@ -47,7 +47,7 @@ def _fail(where: tuple[str | int, ...], message: str):
     return invalid([FieldError(pointer("model", *where), message)])
 
 
-def decode_model(m: dict[str, Any], strict: bool, settings: Settings) -> ModelSummary:
+def decode_model(m: dict[str, Any], settings: Settings) -> ModelSummary:
     """A validated :class:`ModelSummary` from the loaded ``model`` envelope."""
     names = m["names"]
     k = len(names)
@@ -60,10 +60,10 @@ def decode_model(m: dict[str, Any], strict: bool, settings: Settings) -> ModelSu
     if not m["intercept"] and INTERCEPT in seen:
         raise _fail(("names", seen[INTERCEPT]), "'intercept' names the column of ones; the "
                     "model says it has none")
-    estimates = as_vector(m["estimates"], ("model", "estimates"), strict)
+    estimates = as_vector(m["estimates"], ("model", "estimates"))
     if estimates.shape[0] != k:
         raise _fail(("estimates",), f"has {estimates.shape[0]} values for {k} names")
-    cov = as_matrix(m["covariance"], ("model", "covariance"), strict)
+    cov = as_matrix(m["covariance"], ("model", "covariance"))
     if cov.shape != (k, k):
         raise _fail(("covariance",), f"is {cov.shape[0]} x {cov.shape[1]}; the model has "
                     f"{k} names, so it must be {k} x {k}")
@@ -118,7 +118,7 @@ def decode_model(m: dict[str, Any], strict: bool, settings: Settings) -> ModelSu
                             "must name an estimable coefficient")
         aliased.append((a["column"], tuple((t["column"], t["multiplier"])
                                            for t in a["relation"])))
-    root = _root(m.get("covariance_root"), cov, missing, strict)
+    root = _root(m.get("covariance_root"), cov, missing)
     return ModelSummary(names=tuple(names), intercept=m["intercept"], estimates=estimates,
                         covariance=cov, covariance_kind=m["covariance_kind"],
                         residual_variance=float(s2), residual_df=df,
@@ -126,11 +126,11 @@ def decode_model(m: dict[str, Any], strict: bool, settings: Settings) -> ModelSu
                         covariance_root=root)
 
 
-def _root(value: Any, cov: np.ndarray, missing: np.ndarray, strict: bool) -> np.ndarray | None:
+def _root(value: Any, cov: np.ndarray, missing: np.ndarray) -> np.ndarray | None:
     """The optional covariance_root G: k rows (null where the estimate is), ``G G' = V``."""
     if value is None:
         return None
-    g = as_matrix(value, ("model", "covariance_root"), strict)
+    g = as_matrix(value, ("model", "covariance_root"))
     k = cov.shape[0]
     if g.shape[0] != k or g.shape[1] > k:
         raise _fail(("covariance_root",), f"is {g.shape[0]} x {g.shape[1]}; it must have "
@@ -155,12 +155,11 @@ def decode_new_rows(data: dict[str, Any], body: dict[str, Any], model: ModelSumm
                     settings: Settings) -> tuple[np.ndarray, np.ndarray | None]:
     """The new rows as an (m, k) design (intercept column included) and their weights."""
     predictors = [n for n in model.names if not (model.intercept and n == INTERCEPT)]
-    strict = data["_strict"]
     if "new_rows" in data:
         if isinstance(data["new_rows"], list) and data["new_rows"] and predictors == []:
             x = np.empty((len(data["new_rows"]), 0))
         else:
-            x = as_matrix(data["new_rows"], ("new_rows",), strict)
+            x = as_matrix(data["new_rows"], ("new_rows",))
         if x.shape[1] != len(predictors):
             raise invalid([FieldError("/new_rows", f"rows have {x.shape[1]} values; the model "
                                       f"has {len(predictors)} predictors "
@@ -177,7 +176,7 @@ def decode_new_rows(data: dict[str, Any], body: dict[str, Any], model: ModelSumm
         if absent:
             raise invalid([FieldError("/new_table", f"new_table lacks the predictor column(s) "
                                       f"{', '.join(absent)}")])
-        columns = [as_vector(table[p], ("new_table", p), strict) for p in predictors]
+        columns = [as_vector(table[p], ("new_table", p)) for p in predictors]
         lengths = {c.shape[0] for c in columns}
         if len(lengths) > 1:
             n0 = columns[0].shape[0]
@@ -198,7 +197,7 @@ def decode_new_rows(data: dict[str, Any], body: dict[str, Any], model: ModelSumm
                                   "needs every predictor") for i, j in bad[:10]])
     w = None
     if "new_weights" in data:
-        w = as_vector(data["new_weights"], ("new_weights",), strict)
+        w = as_vector(data["new_weights"], ("new_weights",))
         if w.shape[0] != m:
             raise invalid([FieldError("/new_weights", f"has {w.shape[0]} values for {m} "
                                       "new rows")])

@@ -97,8 +97,8 @@ def _read_body() -> bytes:
     return raw
 
 
-def _json_body() -> tuple[object, int]:
-    """The parsed body, and how many boolean literals its bytes hold."""
+def _json_body() -> object:
+    """The parsed JSON body."""
     mime = request.mimetype or ""
     if mime != "application/json" and not mime.endswith("+json"):
         raise ApiProblem(415, "Unsupported Media Type",
@@ -106,7 +106,7 @@ def _json_body() -> tuple[object, int]:
                          "unsupported_media_type")
     raw = _read_body()
     try:
-        return orjson.loads(raw), raw.count(b"true") + raw.count(b"false")
+        return orjson.loads(raw)
     except orjson.JSONDecodeError as err:
         raise ApiProblem(400, "Malformed JSON", f"the body is not valid JSON: {err}",
                          "malformed_json") from None
@@ -168,9 +168,8 @@ def _hypothesis_problem(err: HypothesisError) -> ApiProblem:
     return invalid([FieldError(pointer(*parts), str(err))])
 
 
-def _request() -> tuple[Settings, object, int]:
-    body, booleans = _json_body()
-    return current_app.config["LINFER_SETTINGS"], body, booleans
+def _request() -> tuple[Settings, object]:
+    return current_app.config["LINFER_SETTINGS"], _json_body()
 
 
 # Accept headers that ask for JSON (or anything) in the words clients send most:
@@ -197,14 +196,14 @@ def fit_endpoint() -> Response:
         settings = current_app.config["LINFER_SETTINGS"]
         reader = table_body_from_csv if mimetype == CSV_MEDIA_TYPE \
             else table_body_from_arrow
-        body, booleans = reader(_read_body(), req_.args), 0
+        body = reader(_read_body(), req_.args)
     else:
         if req_.environ.get("QUERY_STRING") and req_.args:
             raise invalid([FieldError("", f"query parameter {name!r} is for CSV and Arrow "
                                       "bodies; with JSON, send the option in the body")
                            for name in req_.args])
-        settings, body, booleans = _request()
-    req = decode_fit(body, settings, booleans)
+        settings, body = _request()
+    req = decode_fit(body, settings)
     if req.summary is not None:
         result = _run_summary(req.summary, req.options, req.column_pointers)
     else:
@@ -223,7 +222,7 @@ def _model_from(data: dict, body: dict, settings: Settings,
                 hypotheses: bool = False) -> tuple[ModelSummary, FitResult | None]:
     """The model summary sent, or the one fitted from the data sent."""
     if "model" in data:
-        return decode_model(data["model"], data["_strict"], settings), None
+        return decode_model(data["model"], settings), None
     options = fit_options({**data, "hypotheses": []} if hypotheses else data, settings)
     design, where = decode_design(data, body, settings)
     result = _run_fit(design, options, where)
@@ -263,8 +262,8 @@ def _prediction_notices(model: ModelSummary, predictions: list, data: dict) -> l
 
 @bp.post("/v1/predict")
 def predict_endpoint() -> Response:
-    settings, body, booleans = _request()
-    data = load_request(_PREDICT, body, booleans)
+    settings, body = _request()
+    data = load_request(_PREDICT, body)
     levels = fit_options({**data, "hypotheses": []}, settings).levels
     model, _ = _model_from(data, body, settings)
     x, weights = decode_new_rows(data, body, model, settings)
@@ -282,8 +281,8 @@ def predict_endpoint() -> Response:
 
 @bp.post("/v1/test")
 def test_endpoint() -> Response:
-    settings, body, booleans = _request()
-    data = load_request(_TEST, body, booleans)
+    settings, body = _request()
+    data = load_request(_TEST, body)
     model, result = _model_from(data, body, settings, hypotheses=True)
     hypotheses = fit_options(data, settings).hypotheses
     rss = result.inference.fit.residual_sum_of_squares if result is not None else (

@@ -101,7 +101,7 @@ def in_process_once(settings, body: bytes) -> float:
     from service.stats.fit import fit
     start = time.perf_counter()
     doc = orjson.loads(body)
-    req = decode_fit(doc, settings, body.count(b"true") + body.count(b"false"))
+    req = decode_fit(doc, settings)
     del doc
     result = fit(req.design, req.options)
     answer = orjson.dumps(encode_fit(result, req.column_pointers))
