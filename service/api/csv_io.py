@@ -57,8 +57,14 @@ CSV_MEDIA_TYPE = "text/csv"
 # fast path (pandas would read "true" as 1.0 and "inf" as infinity: they hold others).
 _NUMERIC_BYTES = b"0123456789+-.eE \t,\r\n\""
 _BOM = b"\xef\xbb\xbf"
-# pandas reads "0E 0" as a number; the careful path, rightly, does not.
-_SPACED_EXPONENT = re.compile(rb"[eE][ \t]|[ \t][eE]|[0-9.][ \t]+[0-9+\-.]")
+# pandas reads "0E 0" as a number; the careful path, rightly, does not. The same as
+# [eE][ \t] | [ \t][eE] | [0-9.][ \t]+[0-9+\-.], written to start at a space or a tab
+# (searched only when the data hold one).
+_SPACED_EXPONENT = re.compile(
+    rb"[ \t](?:(?<=[eE][ \t])|(?=[eE])|(?<=[0-9.][ \t])[ \t]*(?=[0-9+\-.]))")
+# The data are checked for other bytes this many at a time (a copy of this size, not
+# of the body).
+_CHUNK = 1 << 20
 _MISSING_MARKERS = {"na", "n/a", "#n/a", "nan", "null", "none", "-", ".", "?"}
 _QUOTED_MAX = 40
 
@@ -73,8 +79,8 @@ def _quote(text: str) -> str:
 
 # --- reading the table -------------------------------------------------------------------
 
-def _decode(raw: bytes) -> tuple[bytes, str]:
-    """The body without a byte order mark, and its text; 400 when not UTF-8 or empty."""
+def _decode(raw: bytes) -> str:
+    """The text of the body without a byte order mark; 400 when not UTF-8 or empty."""
     skipped = len(_BOM) if raw.startswith(_BOM) else 0
     body = raw[skipped:]
     try:
@@ -87,7 +93,7 @@ def _decode(raw: bytes) -> tuple[bytes, str]:
     if not text.strip():
         raise _malformed("the CSV body is empty: send a header row naming the columns, then "
                          "one row per observation")
-    return body, text
+    return text
 
 
 def _blank(record: list[str]) -> bool:
@@ -139,29 +145,64 @@ def _header(text: str) -> tuple[list[str], int]:
     return names, line
 
 
-def _fast(raw: bytes, k: int) -> np.ndarray | None:
-    """All columns as floats by pandas' C parser, or None when the careful path must decide.
+def _plain_header(raw: bytes) -> tuple[str, int] | None:
+    """The header line's text and where the data start, when the fast path may be taken.
 
-    Taken only when the header is the first line, without quotes, and the data
-    hold nothing but the bytes of plain numbers: then pandas accepts exactly what
-    the careful path accepts (the tests check this), and NaN only marks an empty
-    cell or a short row, which a structural pass tells apart.
+    Taken only when the header is the first line (after a byte order mark), not
+    blank, without quotes or a carriage return before its end, and the data after
+    it hold nothing but the bytes of plain numbers (so the body is UTF-8 and not
+    empty, and its first record is this line: the careful path would raise nothing
+    before the header's own checks, and would read the same header); else None.
     """
-    end = raw.find(b"\n")
-    if end < 0 or b'"' in raw[:end] or not raw[:end].strip():
+    start = len(_BOM) if raw.startswith(_BOM) else 0
+    end = raw.find(b"\n", start)
+    if end < 0:
         return None
-    data = raw[end + 1:]
-    if data.translate(None, _NUMERIC_BYTES) or _SPACED_EXPONENT.search(data):
+    line = raw[start:end - 1] if raw[end - 1:end] == b"\r" and end > start else \
+        raw[start:end]
+    if b'"' in line or b"\r" in line:
         return None
     try:
-        frame = pd.read_csv(io.BytesIO(data), header=None, engine="c", dtype=float,
-                            keep_default_na=False, na_values=[""], skip_blank_lines=True)
+        head = line.decode("utf-8")
+    except UnicodeDecodeError:
+        return None
+    if not head.strip():
+        return None
+    for i in range(end + 1, len(raw), _CHUNK):
+        if raw[i:i + _CHUNK].translate(None, _NUMERIC_BYTES):
+            return None
+    if (raw.find(b" ", end + 1) >= 0 or raw.find(b"\t", end + 1) >= 0) \
+            and _SPACED_EXPONENT.search(raw, end + 1):
+        return None
+    return head, end + 1
+
+
+def _fast(raw: bytes, k: int) -> list[np.ndarray] | None:
+    """All k columns as floats by pandas' C parser, or None when the careful path must decide.
+
+    Called only when :func:`_plain_header` has found the header line and the data
+    plain: then pandas accepts exactly what the careful path accepts (the tests
+    check this), and NaN only marks an empty cell or a short row, which a
+    structural pass tells apart. The columns are pandas' own arrays, not copied.
+    """
+    try:
+        frame = pd.read_csv(io.BytesIO(raw), header=None, skiprows=1, engine="c",
+                            dtype=float, keep_default_na=False, na_values=[""],
+                            skip_blank_lines=True)
     except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
         return None
-    values = frame.to_numpy(dtype=float)
-    if values.shape[1] != k or np.isinf(values).any():
+    if frame.shape[1] != k:
         return None
-    return values
+    columns = []
+    for j in range(k):
+        column = frame.iloc[:, j].to_numpy(dtype=np.float64)
+        if np.isinf(column).any():
+            return None
+        # A view that pandas marks read-only; the frame is dropped here, so the
+        # caller may own it.
+        column.flags.writeable = True
+        columns.append(column)
+    return columns
 
 
 def _structure_agrees(text: str, k: int, n: int) -> bool:
@@ -173,6 +214,35 @@ def _structure_agrees(text: str, k: int, n: int) -> bool:
         if len(record) != k:
             return False
         count += 1
+    return count == n
+
+
+def _plain_structure_agrees(raw: bytes, start: int, k: int, n: int) -> bool:
+    """:func:`_structure_agrees` for plain data from ``start`` on without quotes.
+
+    Without quotes every line is a record (``\\r\\n`` makes an empty one between
+    its two bytes, which is blank and skipped, as a record of spaces and tabs
+    only is), and its fields are its commas plus one: counted with numpy, a piece
+    of about _CHUNK bytes ending at a line end at a time.
+    """
+    count, pos, size = 0, start, len(raw)
+    while pos < size:
+        end = raw.find(b"\n", pos + _CHUNK)
+        end = size if end < 0 else end + 1
+        piece = np.frombuffer(raw, np.uint8, end - pos, pos)
+        stops = np.flatnonzero((piece == 10) | (piece == 13))
+        if not stops.size or stops[-1] != piece.size - 1:
+            stops = np.append(stops, piece.size)  # the last record has no line end
+        starts = np.concatenate(([0], stops[:-1] + 1))
+        commas = np.concatenate(([0], np.cumsum(piece == 44, dtype=np.int64)))
+        other = np.concatenate(([0], np.cumsum((piece != 32) & (piece != 9) & (piece != 10)
+                                               & (piece != 13), dtype=np.int64)))
+        fields = commas[stops] - commas[starts] + 1
+        blank = other[stops] == other[starts]
+        if (fields[~blank] != k).any():
+            return False
+        count += int(np.count_nonzero(~blank))
+        pos = end
     return count == n
 
 
@@ -299,16 +369,24 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
         and the column). Up to 10 cells are pointed at; ``detail`` counts them all.
     """
     options = options_from_query(query)
-    body, text = _decode(raw)
-    header, header_line = _header(text)
-    used = _used_columns(header, options)
-    values = _fast(body, len(header))
-    if values is not None and np.isnan(values).any() \
-            and not _structure_agrees(text, len(header), values.shape[0]):
-        values = None
+    plain = _plain_header(raw)
+    values = None
+    if plain is not None:
+        # The careful path's checks of the body before the header would all pass.
+        header, header_line = _header(plain[0])
+        used = _used_columns(header, options)
+        values = _fast(raw, len(header))
+        if values is not None and any(np.isnan(c).any() for c in values):
+            k, n, start = len(header), values[0].shape[0], plain[1]
+            if not (_plain_structure_agrees(raw, start, k, n) if raw.find(b'"', start) < 0
+                    else _structure_agrees(_decode(raw), k, n)):
+                values = None
     if values is not None:
-        n, columns = values.shape[0], [values[:, j] for j in used]
+        n, columns = values[0].shape[0], [values[j] for j in used]
     else:
+        text = _decode(raw)
+        header, header_line = _header(text)
+        used = _used_columns(header, options)
         n, columns = _careful(text, header, used)
     if n == 0:
         raise invalid([FieldError("/table", f"the CSV has a header row (line {header_line}) "
