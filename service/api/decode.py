@@ -188,11 +188,8 @@ def _table_layout(data: dict[str, Any], settings: Settings):
             arrays.append((w, ("table", weight_col) if weight_col else ("weights",), False))
         _reject_missing(arrays)
     if terms is None:
-        x = np.empty((n, len(columns)), order="F")  # column order, as the design keeps it
-        for j, col in enumerate(columns):
-            x[:, j] = col
         where = {name: pointer("table", name) for name in predictors}
-        return x, y, w, predictors, where, None, ()
+        return columns, y, w, predictors, where, None, ()
     try:
         expanded = expand_terms(tuple(terms), dict(zip(predictors, columns)), labels)
     except TermError as err:

@@ -204,6 +204,9 @@ def fit_endpoint() -> Response:
                            for name in req_.args])
         settings, body = _request()
     req = decode_fit(body, settings)
+    # The design holds its own copy of the numbers: let the parsed body (for JSON a
+    # Python object per number, for Arrow and CSV the stream's buffers) go before the fit.
+    del body
     if req.summary is not None:
         result = _run_summary(req.summary, req.options, req.column_pointers)
     else:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Sequence
 
 import numpy as np
 
@@ -53,7 +54,8 @@ class Design:
         return int(self.matrix.shape[0])
 
 
-def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str, ...], *,
+def build_design(predictors: np.ndarray | Sequence[np.ndarray], response: np.ndarray,
+                 names: tuple[str, ...], *,
                  intercept: bool = True, weights: np.ndarray | None = None,
                  exact: ExactColumns | None = None,
                  terms: tuple[TermInfo, ...] = ()) -> Design:
@@ -61,9 +63,10 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
 
     Parameters
     ----------
-    predictors : (n, m) float array
+    predictors : (n, m) float array, or m float arrays of n values (the columns)
         Finite or NaN (missing); rows with a NaN anywhere (predictors, response or
         weight) are dropped. The caller decides beforehand whether that is allowed.
+        Columns are copied once, straight into the design.
     response : (n,) float array
     names : tuple of m str
     intercept : bool
@@ -74,13 +77,23 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
         were built from model terms
     """
     n = response.shape[0]
+    # A view into something larger (a column of an Arrow stream or of a parsed CSV
+    # block) would keep all of that alive for as long as the design: own copies.
+    if response.base is not None:
+        response = response.copy()
+    if weights is not None and weights.base is not None:
+        weights = weights.copy()
     bad = np.isnan(response)
+    matrix = isinstance(predictors, np.ndarray)
+    columns = list(predictors.T) if matrix else list(predictors)
     # A NaN anywhere makes the plain sum NaN (so can opposite overflows): one pass over
     # the predictors decides whether the row-by-row test is needed.
     with np.errstate(over="ignore", invalid="ignore"):
-        suspect = predictors.size and math.isnan(float(predictors.sum()))
+        suspect = math.isnan(float(predictors.sum())) if matrix else \
+            any(math.isnan(float(c.sum())) for c in columns)
     if suspect:
-        bad |= np.isnan(predictors).any(axis=1)
+        for column in columns:
+            bad |= np.isnan(column)
     if weights is not None:
         bad |= np.isnan(weights)
     keep = ~bad
@@ -98,13 +111,17 @@ def build_design(predictors: np.ndarray, response: np.ndarray, names: tuple[str,
         if np.all(w == 1.0):
             w = None
     first = 1 if intercept else 0
-    x = np.empty((rows.size, predictors.shape[1] + first), order="F")
+    x = np.empty((rows.size, len(columns) + first), order="F")
     if intercept:
         x[:, 0] = 1.0
         names = (INTERCEPT,) + tuple(names)
         if exact is not None:
             exact = exact.with_intercept()
-    x[:, first:] = predictors[rows] if rows.size != n else predictors
+    if matrix:
+        x[:, first:] = predictors[rows] if rows.size != n else predictors
+    else:
+        for j, column in enumerate(columns):
+            x[:, first + j] = column[rows] if rows.size != n else column
     return Design(matrix=x, response=y, weights=w,
                   names=tuple(names), intercept=intercept, rows_used=rows,
                   rows_dropped_missing=dropped_missing, rows_zero_weight=zero,

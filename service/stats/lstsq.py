@@ -218,13 +218,19 @@ def _upper_mask(k: int) -> np.ndarray:
     return mask
 
 
-def _householder(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pivoted Householder QR of ``a`` (n x k, n >= k): the packed factor, pivots, tau."""
+def _householder(a: np.ndarray, overwrite: bool = False
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pivoted Householder QR of ``a`` (n x k, n >= k): the packed factor, pivots, tau.
+
+    With ``overwrite`` the factor takes the place of ``a`` (Fortran-ordered), which is
+    then lost; otherwise LAPACK factors a copy.
+    """
     k = a.shape[1]
     # LAPACK's optimal workspace for dgeqp3 is 2k + (k + 1) nb with block size nb;
     # 64 covers the usual nb without a workspace query per call.
     lwork = 2 * k + (k + 1) * 64
-    qr, jpvt, tau, _, info = lapack.dgeqp3(np.asfortranarray(a), lwork=lwork)
+    qr, jpvt, tau, _, info = lapack.dgeqp3(np.asfortranarray(a), lwork=lwork,
+                                           overwrite_a=int(overwrite))
     if info != 0:
         raise ArithmeticError(f"dgeqp3 failed with info={info}")
     return qr, jpvt - 1, tau
@@ -380,7 +386,40 @@ class _Core:
     digits: float
 
 
-def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray | None,
+class _Equilibrated:
+    """The scaled design ``A = sqrt(W) X diag(2^-e)`` once it has been factored.
+
+    Small problems keep A itself. Large ones let LAPACK factor A in its own place (one
+    copy of the design less at the peak) and keep ``sqrt(W) X`` and ``e`` instead:
+    ``A b = sqrt(W) X (2^-e b)`` is then the same floating-point computation, because
+    each product ``x_ij (2^-e_j b_j)`` is the same real number as ``a_ij b_j`` and so
+    rounds the same, as long as ``2^-e b`` is exact; when it is not, A is formed again.
+    """
+
+    def __init__(self, held: np.ndarray, exponents: np.ndarray | None = None):
+        self.held = held
+        self.exponents = exponents
+        self.shape = held.shape
+        self.size = held.size
+
+    def times(self, b: np.ndarray) -> np.ndarray:
+        """``A b`` in double precision (BLAS)."""
+        e = self.exponents
+        if e is None:
+            return self.held @ b
+        c = np.ldexp(b, -e)
+        if np.array_equal(np.ldexp(c, e), b):
+            return self.held @ c
+        return np.ldexp(self.held, -e[None, :]) @ b
+
+    def long_double(self) -> np.ndarray:
+        """A as an 80-bit copy (exactly: the scaling is by powers of two)."""
+        if self.exponents is None:
+            return self.held.astype(np.longdouble)
+        return np.ldexp(self.held.astype(np.longdouble), -self.exponents[None, :])
+
+
+def _double_path(a: _Equilibrated, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray | None,
                  w: np.ndarray | None, centered: bool, q: _Orthogonal, r11: np.ndarray,
                  pivots: np.ndarray, kappa: float, sigma_max: float) -> _Core:
     k = a.shape[1]
@@ -389,21 +428,21 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
     # Residuals in 80-bit arithmetic where that is cheap; large problems keep double
     # (BLAS) residuals unless refinement asks for extended ones.
     small = a.size <= REFINE_ALWAYS_CELLS
-    a_ld = a.astype(np.longdouble) if small else None
+    a_ld = a.long_double() if small else None
     rinv, info = lapack.dtrtri(r11)
     if info != 0:
         raise ArithmeticError(f"dtrtri failed with info={info}")
     root = np.empty((k, k))
     root[pivots] = rinv
     cov = root @ root.T
-    rw = _residual(ys_w, a if a_ld is None else a_ld, bs)
+    rw = ys_w - a.times(bs) if a_ld is None else _residual(ys_w, a_ld, bs)
     err_b, err_se = _error_bounds(ys_w, bs, rw, cov, kappa, sigma_max)
     # Refine where it pays: always on small problems (cheap), and on large ones only
     # when the estimates have lost many of the digits double precision allows.
     worth = 8 * EPS if small else 1e-10
     if err_b > max(err_se, worth):
         if a_ld is None:
-            a_ld = a.astype(np.longdouble)
+            a_ld = a.long_double()
         bs, last_change, steps = _refine(a_ld, q, r11, pivots, ys_w, bs, rw)
         if steps:
             # A converging refinement leaves an error below its last correction.
@@ -443,12 +482,10 @@ def _double_path(a: np.ndarray, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndarray
                  digits=min(FULL_DIGITS, -math.log10(worst)))
 
 
-def _residual(y: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """``y - A b``: accumulated in 80-bit arithmetic and rounded once when ``a`` is a
-    long-double copy; in double (BLAS) otherwise."""
-    if a.dtype == np.longdouble:
-        return (y.astype(np.longdouble) - a @ b.astype(np.longdouble)).astype(float)
-    return y - a @ b
+def _residual(y: np.ndarray, a_ld: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``y - A b`` accumulated in 80-bit arithmetic (``a_ld``: A in long double) and
+    rounded once."""
+    return (y.astype(np.longdouble) - a_ld @ b.astype(np.longdouble)).astype(float)
 
 
 def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarray,
@@ -627,15 +664,22 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     """
     n, k = x.shape
     sw = None if weights is None else np.sqrt(weights)
-    xw = x if sw is None else x * sw[:, None]
+    xw = x if sw is None else np.multiply(x, sw[:, None], out=np.empty(x.shape, order="F"))
     e_col = _power_of_two_exponents(xw)
     e_y = _power_of_two_exponent(y if sw is None else y * sw)
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
-    # Fortran order from the start: LAPACK factors a copy of it without another.
-    a = np.ldexp(xw, -e_col[None, :], out=np.empty(xw.shape, order="F"))
-
-    qr, pivots, tau = _householder(a)
+    # Large designs: at most three copies of the data at the peak (the caller's, sqrt(W) X
+    # or A, and the factor); see _Equilibrated.
+    large = xw.size > REFINE_ALWAYS_CELLS
+    if large and sw is not None:
+        a = np.ldexp(xw, -e_col[None, :], out=xw)  # xw is this call's own copy
+        held = _Equilibrated(a)
+    else:
+        # Fortran order from the start: LAPACK factors it without another copy.
+        a = np.ldexp(xw, -e_col[None, :], out=np.empty(xw.shape, order="F"))
+        held = _Equilibrated(xw, e_col) if large else _Equilibrated(a)
+    qr, pivots, tau = _householder(a, overwrite=large and sw is None)
     diag = np.abs(np.diag(qr[:k, :k]))
     rows = n if rank_rows is None else rank_rows
     if rank_tolerance is None:
@@ -654,10 +698,13 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
             raise RankDeficient(aliases, rank, k)
 
     if len(kept) < k:
-        a_kept = a[:, kept]
-        qr, pivots, tau = _householder(a_kept)
-    else:
-        a_kept = a
+        if held.exponents is None:
+            held = _Equilibrated(held.held[:, kept])
+            qr, pivots, tau = _householder(held.held)
+        else:
+            held = _Equilibrated(xw[:, kept], e_col[kept])
+            qr, pivots, tau = _householder(
+                np.ldexp(held.held, -held.exponents[None, :]), overwrite=True)
     rk = qr[:len(kept), :len(kept)] * _upper_mask(len(kept))
     unit = np.empty_like(rk)
     unit[:, pivots] = rk
@@ -675,8 +722,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         singular, vt, kappa, sigma_max = np.zeros(0), np.zeros((0, 0)), 1.0, 1.0
 
     if len(kept):
-        q = _Orthogonal(qr, tau, len(kept), explicit=a_kept.size <= REFINE_ALWAYS_CELLS)
-        core = _double_path(a_kept, ys_w, ys, sw, weights, centered, q, rk, pivots,
+        q = _Orthogonal(qr, tau, len(kept), explicit=held.size <= REFINE_ALWAYS_CELLS)
+        core = _double_path(held, ys_w, ys, sw, weights, centered, q, rk, pivots,
                             kappa, sigma_max)
         method = "householder_qr"
         if (core.digits < extended_below_digits

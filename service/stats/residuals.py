@@ -70,7 +70,7 @@ def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
     whose square does not underflow): the test is then undefined (NaN).
     """
     n = u.shape[0]
-    centred = u - mean
+    centred = np.subtract(u, mean, out=u)  # u is the caller's own temporary
     ss_tot = float(np.dot(centred, centred))
     if solution is not None and solution.factor is not None and solution.rank > 1:
         # With an intercept and no weights the auxiliary regressors are the model's own
@@ -91,9 +91,10 @@ def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
         return math.nan, int(z.shape[1]), math.nan
     scale = np.max(np.abs(z), axis=0)
     a = np.column_stack([np.ones(n), z / scale])
-    coef, _, rank_a, _ = np.linalg.lstsq(a, u, rcond=None)
+    # Regressing the centred squares: the fitted values are already about their mean.
+    coef, _, rank_a, _ = np.linalg.lstsq(a, centred, rcond=None)
     rank = int(rank_a) - 1
-    spread = a @ coef - mean
+    spread = a @ coef
     lm = n * float(np.dot(spread, spread)) / ss_tot
     return lm, rank, _chdtrc(float(rank), lm) if rank > 0 else math.nan
 
@@ -134,6 +135,7 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
     # residuals near 1e100 neither overflow nor underflow. max|e| from the sorted ends
     # (NaN, sorted last, wins). Scalars are Python floats: no numpy warnings.
     low, high = (-ordered.item(0), ordered.item(n - 1)) if n else (0.0, 0.0)
+    del ordered  # large designs: one n-vector fewer alive at the peak below
     top = low if low > high else high
     e = raw / top if top > 0 else raw
     d = e - float(np.add.reduce(e)) / n
@@ -146,10 +148,12 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
         jb_p = math.exp(-jb / 2.0)
     else:
         skew = kurt = jb = jb_p = math.nan
+    del d, d2
     ss = float(np.dot(e, e))
     if ss > 0 and n > 1:
         step = e[1:] - e[:-1]
         dw = float(np.dot(step, step)) / ss
+        del step
     else:
         dw = math.nan
     own_columns = intercept and weights is None and solution.rank == x.shape[1]

@@ -46,6 +46,7 @@ from e2e.test_load import proc_kib, wait_for_workers, worker_pids  # noqa: E402
 RESULTS = BENCH_DIR / "results"
 
 __all__ = ["BENCH_DIR", "REPO", "RESULTS", "Load", "environment", "gunicorn_server",
+           "served_request",
            "linfer_server", "load", "median", "peak_reset", "proc_kib", "wait_for_workers",
            "table", "worker_pids", "write_results"]
 
@@ -113,6 +114,32 @@ def peak_reset(pid: int) -> bool:
         return True
     except OSError:
         return False
+
+
+def served_request(server: Server, path: str, body: bytes, content_type: str
+                   ) -> tuple[float, int, bool]:
+    """One POST to a 2-worker server: seconds from the first byte sent to the last read,
+    the serving worker's peak memory growth in bytes (VmHWM after minus VmRSS before,
+    VmHWM reset first), and whether the reset worked (without it, growth is counted from
+    the older peak, so only what this request added shows)."""
+    from e2e.test_load import post
+
+    pids = wait_for_workers(server.process.pid, 2, 10.0)
+    reset = all(peak_reset(pid) for pid in pids)
+    base = {pid: proc_kib(pid, "VmRSS") if reset
+            else max(proc_kib(pid, "VmRSS"), proc_kib(pid, "VmHWM")) for pid in pids}
+    start = time.perf_counter()
+    reply = post(server.base_url, path, body, content_type=content_type, timeout=600.0)
+    elapsed = time.perf_counter() - start
+    if reply.status != 200:
+        raise RuntimeError(f"{reply.status}: {reply.body[:300]!r}")
+    growth = [0]
+    for pid, before in base.items():
+        try:
+            growth.append(proc_kib(pid, "VmHWM") - before)
+        except OSError:  # the worker was replaced
+            pass
+    return elapsed, max(growth) * 1024, reset
 
 
 # --- load ------------------------------------------------------------------------------

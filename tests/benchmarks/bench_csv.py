@@ -35,8 +35,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from _harness import (linfer_server, median, peak_reset, proc_kib, table,
-                      wait_for_workers, write_results)
+from _harness import (linfer_server, median, peak_reset, proc_kib, served_request, table,
+                      write_results)
 
 import numpy as np  # noqa: E402  (after _harness: one BLAS thread)
 import orjson  # noqa: E402
@@ -44,8 +44,6 @@ import pandas as pd  # noqa: E402
 import scipy.linalg  # noqa: E402
 from bench_arrow import PREDICTORS, columns  # noqa: E402
 from bench_large_requests import server_durations  # noqa: E402
-
-from e2e.test_load import post  # noqa: E402
 
 GOAL_TIME_RATIO, GOAL_MEMORY_RATIO = 1.5, 3.0
 PATH, CSV = "/v1/fit?response_column=y", "text/csv"
@@ -127,26 +125,6 @@ def own_time_profile(call, top: int = 14) -> str:
     return listing[listing.index("   ncalls"):].rstrip()
 
 
-def served_request(server, body: bytes) -> tuple[float, int, bool]:
-    """One CSV POST: seconds, the serving worker's peak growth (bytes), VmHWM reset or not."""
-    pids = wait_for_workers(server.process.pid, 2, 10.0)
-    reset = all(peak_reset(pid) for pid in pids)
-    base = {pid: proc_kib(pid, "VmRSS") if reset
-            else max(proc_kib(pid, "VmRSS"), proc_kib(pid, "VmHWM")) for pid in pids}
-    start = time.perf_counter()
-    reply = post(server.base_url, PATH, body, content_type=CSV, timeout=600.0)
-    elapsed = time.perf_counter() - start
-    if reply.status != 200:
-        raise RuntimeError(f"{reply.status}: {reply.body[:300]!r}")
-    growth = []
-    for pid, before in base.items():
-        try:
-            growth.append(proc_kib(pid, "VmHWM") - before)
-        except OSError:  # the worker was replaced
-            pass
-    return elapsed, max(growth) * 1024, reset
-
-
 def timed_runs(run, repeat: int) -> list[float]:
     """The seconds ``run()`` reports, ``repeat`` times after one warm-up run."""
     run()
@@ -169,7 +147,7 @@ def measure(rows: int, repeat: int) -> dict:
           f"{median(in_process):.3f} s")
 
     with linfer_server(env=env, label=f"csv-{rows}") as server:
-        served = [served_request(server, body) for _ in range(repeat + 2)]
+        served = [served_request(server, PATH, body, CSV) for _ in range(repeat + 2)]
         logged = server_durations(server, rows)
     # The first request of each worker also warms it up.
     first, served = served[:2], served[2:]

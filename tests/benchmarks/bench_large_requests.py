@@ -34,14 +34,13 @@ import tempfile
 import time
 from pathlib import Path
 
-from _harness import (linfer_server, median, peak_reset, proc_kib, table,
-                      wait_for_workers, write_results)
+from _harness import (linfer_server, median, peak_reset, proc_kib, served_request, table,
+                      write_results)
 
 import numpy as np  # noqa: E402  (after _harness: one BLAS thread)
 import orjson  # noqa: E402
 import scipy.linalg  # noqa: E402
 
-from e2e.test_load import post  # noqa: E402
 
 PREDICTORS, SEED = 10, 7
 GOAL_TIME_RATIO, GOAL_MEMORY_RATIO = 1.5, 6.0
@@ -125,24 +124,8 @@ def own_time_profile(settings, body: bytes, top: int = 12) -> str:
 
 def served_once(server, body: bytes) -> dict:
     """One POST; the time, and the peak growth of the worker that served it (KiB)."""
-    pids = wait_for_workers(server.process.pid, 2, 10.0)
-    reset = all(peak_reset(pid) for pid in pids)
-    rss = {pid: proc_kib(pid, "VmRSS") for pid in pids}
-    hwm = {pid: proc_kib(pid, "VmHWM") for pid in pids}
-    start = time.perf_counter()
-    reply = post(server.base_url, "/v1/fit", body, timeout=600.0)
-    elapsed = time.perf_counter() - start
-    assert reply.status == 200, reply.body[:300]
-    growth = {}
-    for pid in pids:
-        try:
-            after = proc_kib(pid, "VmHWM")
-        except OSError:  # the worker was replaced
-            continue
-        # Without the reset VmHWM keeps an older peak: count only what this request added.
-        growth[pid] = after - (rss[pid] if reset else max(rss[pid], hwm[pid]))
-    return {"seconds": elapsed, "peak_growth_kib": max(growth.values()), "hwm_reset": reset,
-            "rss_before_kib": rss}
+    elapsed, growth, reset = served_request(server, "/v1/fit", body, "application/json")
+    return {"seconds": elapsed, "peak_growth_kib": growth / 1024, "hwm_reset": reset}
 
 
 def server_durations(server, rows: int) -> list[float]:
@@ -177,14 +160,16 @@ def measure(rows: int, repeat: int, env: dict[str, str] | None) -> dict:
     first, served = served[0], served[1:]  # the first request of a worker also warms it up
     seconds = [s["seconds"] for s in served]
     growth = [s["peak_growth_kib"] * 1024 for s in served]
-    print(f"  end to end over HTTP: median {median(seconds):.3f} s (first {first['seconds']:.3f} s);"
+    print(f"  end to end over HTTP: median {median(seconds):.3f} s "
+          f"(first {first['seconds']:.3f} s);"
           f" server-side (access log) median {median(logged[1:] or logged):.3f} s")
     print(f"  worker peak growth: median {median(growth) / 1e6:.1f} MB = "
           f"{median(growth) / len(body):.2f} x body (first request "
           f"{first['peak_growth_kib'] * 1024 / len(body):.2f} x)")
     return {
         "rows": rows, "columns": PREDICTORS + 1, "body_bytes": len(body), "repeat": repeat,
-        "in_process_profile": profile, "floor_s": floor, "floor_peak_growth_bytes": floor_peak, "in_process_s": in_process, "served_s": seconds,
+        "in_process_profile": profile, "floor_s": floor, "floor_peak_growth_bytes": floor_peak,
+        "in_process_s": in_process, "served_s": seconds,
         "served_first_s": first["seconds"], "server_logged_s": logged,
         "peak_growth_bytes": growth, "first_peak_growth_bytes": first["peak_growth_kib"] * 1024,
         "hwm_reset": all(s["hwm_reset"] for s in served),

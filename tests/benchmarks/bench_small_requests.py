@@ -6,8 +6,9 @@ Both servers run side by side in one run, on the same gunicorn configuration: li
 through `linfer serve --workers 2` (service/gunicorn_config.py: sync workers), the bare
 app through ``gunicorn -c python:service.gunicorn_config -w 2``. The bare app (defined
 below) parses the same body with orjson and returns a fixed small JSON object, so the
-difference is the work linfer does per request. Load alternates between the two for a few rounds (wrk if installed,
-else a bounded Python client); the figures are medians over the rounds.
+difference is the work linfer does per request. Load alternates between the two for a
+few rounds (wrk if installed, else a bounded Python client); the figures are medians
+over the rounds.
 
 Goal from the issue "Serving for real": linfer's requests/s at least 0.7 x the bare
 endpoint's. Also printed: where the time goes in-process (cProfile over the Flask test
@@ -180,7 +181,8 @@ def main() -> None:
     md = "\n".join([
         f"# Small requests: /v1/fit {ROWS} x {PREDICTORS} vs a bare Flask endpoint",
         "",
-        f"Both on gunicorn with service/gunicorn_config.py, 2 sync workers; load {runs['linfer'][0].tool}, "
+        "Both on gunicorn with service/gunicorn_config.py, 2 sync workers; load "
+        f"{runs['linfer'][0].tool}, "
         f"{args.connections} connections, {args.rounds} alternating rounds of "
         f"{args.seconds:g} s (medians); body {len(body)} bytes.",
         "",
