@@ -35,7 +35,7 @@ from typing import Callable
 
 import mpmath
 import numpy as np
-from scipy.linalg import lapack
+from scipy.linalg import blas, lapack
 
 __all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "extended_work", "solve"]
 
@@ -203,10 +203,9 @@ def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
 
 def _power_of_two_exponent(v: np.ndarray) -> int:
     """The exponent ``e`` such that ``v * 2**-e`` has a 2-norm in [0.5, 1) (0 for zero)."""
-    with np.errstate(over="ignore", under="ignore"):
-        square = float(np.dot(v, v))
-    if 1e-290 < square < 1e290:
-        return math.frexp(math.sqrt(square))[1]
+    norm = _norm(v)
+    if math.isfinite(norm):
+        return math.frexp(norm)[1]
     return int(_power_of_two_exponents(v[:, None])[0])
 
 
@@ -249,8 +248,9 @@ def solve_triangular(r: np.ndarray, b: np.ndarray, trans: str = "N") -> np.ndarr
 
 
 def _norm(v: np.ndarray) -> float:
-    """The 2-norm of a vector in the solver's scaled units (no overflow there)."""
-    return math.sqrt(float(np.dot(v, v)))
+    """The 2-norm of a vector (BLAS ``dnrm2``: scaled, so neither squares nor their sum
+    overflow or underflow)."""
+    return float(blas.dnrm2(v))
 
 
 def _apply(qr: np.ndarray, tau: np.ndarray, v: np.ndarray, trans: str) -> np.ndarray:
@@ -680,7 +680,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         a = np.ldexp(xw, -e_col[None, :], out=np.empty(xw.shape, order="F"))
         held = _Equilibrated(xw, e_col) if large else _Equilibrated(a)
     qr, pivots, tau = _householder(a, overwrite=large and sw is None)
-    diag = np.abs(np.diag(qr[:k, :k]))
+    diag = np.abs(qr.diagonal())
     rows = n if rank_rows is None else rank_rows
     if rank_tolerance is None:
         # Small enough for the extended path: only columns that are dependent up to
