@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .lstsq import Alias, LeastSquares
+from .notices import direct_init
 
 __all__ = ["Conditioning", "assess", "CONDITION_INDEX_LIMIT", "PROPORTION_LIMIT"]
 
@@ -29,6 +30,7 @@ CONDITION_INDEX_LIMIT = 30.0
 PROPORTION_LIMIT = 0.5
 
 
+@direct_init
 @dataclass(frozen=True)
 class CollinearSet:
     """Columns whose coefficient variances one near-dependency inflates."""
@@ -38,6 +40,7 @@ class CollinearSet:
     proportions: tuple[float, ...]
 
 
+@direct_init
 @dataclass(frozen=True)
 class Conditioning:
     """The verdict on the design.

@@ -16,6 +16,7 @@ import numpy as np
 from .covariance import CovarianceEstimate, estimate_covariance
 from .distributions import f_quantile, f_upper_p, t_quantile, t_two_sided_p
 from .lstsq import EPS, LeastSquares
+from .notices import direct_init
 
 __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "infer",
            "is_perfect_fit", "SIMULTANEOUS", "simultaneous_multipliers"]
@@ -23,13 +24,8 @@ __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "in
 SIMULTANEOUS = ("bonferroni", "scheffe")
 
 
-# The table's dataclasses are frozen, and their generated __init__ sets each field
-# through object.__setattr__ (past the frozen __setattr__), several times slower than
-# filling the instance dict; a request makes a few dozen of these fields. So Interval
-# and Coefficient spell out an __init__ that fills the dict: same fields, same order.
-
-
-@dataclass(frozen=True, init=False)
+@direct_init
+@dataclass(frozen=True)
 class Interval:
     """A two-sided confidence interval at ``level``."""
 
@@ -37,14 +33,9 @@ class Interval:
     lower: float
     upper: float
 
-    def __init__(self, level: float, lower: float, upper: float) -> None:
-        fields = self.__dict__
-        fields["level"] = level
-        fields["lower"] = lower
-        fields["upper"] = upper
 
-
-@dataclass(frozen=True, init=False)
+@direct_init
+@dataclass(frozen=True)
 class Coefficient:
     """One row of the coefficient table.
 
@@ -63,21 +54,8 @@ class Coefficient:
     simultaneous_intervals: tuple[Interval, ...]
     vif: float
 
-    def __init__(self, name: str, estimable: bool, estimate: float, standard_error: float,
-                 t_statistic: float, p_value: float, intervals: tuple[Interval, ...],
-                 simultaneous_intervals: tuple[Interval, ...], vif: float) -> None:
-        fields = self.__dict__
-        fields["name"] = name
-        fields["estimable"] = estimable
-        fields["estimate"] = estimate
-        fields["standard_error"] = standard_error
-        fields["t_statistic"] = t_statistic
-        fields["p_value"] = p_value
-        fields["intervals"] = intervals
-        fields["simultaneous_intervals"] = simultaneous_intervals
-        fields["vif"] = vif
 
-
+@direct_init
 @dataclass(frozen=True)
 class FitStatistics:
     """Goodness of fit.
@@ -104,6 +82,7 @@ class FitStatistics:
     centered: bool
 
 
+@direct_init
 @dataclass(frozen=True)
 class FTest:
     """``statistic ~ F(numerator_df, denominator_df)`` under the null; ``p_value = P(F >= statistic)``."""
@@ -114,6 +93,7 @@ class FTest:
     p_value: float
 
 
+@direct_init
 @dataclass(frozen=True)
 class Inference:
     n_observations: int

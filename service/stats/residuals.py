@@ -28,6 +28,7 @@ import numpy as np
 from scipy.special import cython_special
 
 from .lstsq import LeastSquares
+from .notices import direct_init
 
 __all__ = ["ResidualChecks", "Influence", "check_residuals", "influence"]
 
@@ -35,6 +36,7 @@ _PROBS = (0.0, 0.25, 0.5, 0.75, 1.0)
 _chdtrc = cython_special.chdtrc  # chi-square upper tail, scipy.special.chdtrc on floats
 
 
+@direct_init
 @dataclass(frozen=True)
 class ResidualChecks:
     quantiles: tuple[tuple[float, float], ...]
@@ -48,6 +50,7 @@ class ResidualChecks:
     breusch_pagan_p_value: float
 
 
+@direct_init
 @dataclass(frozen=True)
 class Influence:
     leverage: np.ndarray
