@@ -8,11 +8,13 @@ value (NaN here); whether it is allowed is the caller's decision.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from .problems import ApiProblem, FieldError, pointer
 
-__all__ = ["as_vector", "as_matrix", "invalid", "check_unique", "MAX_POINTED"]
+__all__ = ["as_vector", "as_matrix", "invalid", "check_unique", "surely_finite", "MAX_POINTED"]
 
 MAX_POINTED = 10
 _NUMBER_TYPES = (int, float)
@@ -66,7 +68,16 @@ def _object_cells(arr: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:
     return out.reshape(arr.shape)
 
 
+def surely_finite(arr: np.ndarray) -> bool:
+    """True when every value of the float array ``arr`` is finite, from one pass: its sum
+    of squares is NaN or infinite when a value is. False says only "look closer": the
+    sum also overflows for values beyond about 1e154."""
+    return math.isfinite(np.vdot(arr, arr))
+
+
 def _finite(out: np.ndarray, where: tuple[str | int, ...]) -> np.ndarray:
+    if surely_finite(out):
+        return out
     bad = np.isinf(out)
     if bad.any():
         errors = [FieldError(pointer(*where, *map(int, ix)), "must be a finite number")
@@ -82,6 +93,9 @@ def _holds_booleans(value: list, arr: np.ndarray) -> bool:
     can hold one: their Python values are looked at, nothing else.
     """
     flat = arr.reshape(-1)
+    size = flat.size
+    if np.count_nonzero(flat) == size and np.count_nonzero(flat - 1) == size:
+        return False  # no cell is 0 or 1 (x - 1 is 0 only for x equal to 1)
     candidates = np.flatnonzero((flat == 0) | (flat == 1))
     if not candidates.size:
         return False

@@ -20,7 +20,7 @@ from ..stats.hypotheses import Hypothesis, Restriction
 from ..stats.summaries import Summary
 from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term,
                            TermError, expand_terms)
-from .arrays import MAX_POINTED, as_matrix, as_vector, check_unique, invalid
+from .arrays import MAX_POINTED, as_matrix, as_vector, check_unique, invalid, surely_finite
 from .problems import FieldError, pointer
 from .schemas import FitRequestSchema, flatten_errors, load_envelope
 
@@ -81,6 +81,8 @@ def _reject_missing(arrays: list[tuple[np.ndarray, tuple[str | int, ...], bool]]
     errors: list[FieldError] = []
     total = 0
     for arr, where, _ in arrays:
+        if surely_finite(arr):
+            continue
         mask = np.isnan(arr)
         if not mask.any():
             continue
