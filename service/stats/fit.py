@@ -84,44 +84,52 @@ def describe_alias(alias: Alias, names: tuple[str, ...]) -> str:
     return f"{name} = " + " ".join(parts)
 
 
-def _column_spread(design: Design) -> np.ndarray | None:
+def _column_spread(design: Design) -> list[float] | None:
     """``sqrt(sum w (x_j - xbar_j)^2)`` per column, for VIF; NaN for the intercept.
 
     One pass (``sum w x^2 - (sum w x)^2 / sum w``) where that keeps at least 6 digits,
     which is plenty for a diagnostic; a second, centred pass for columns whose mean
-    dwarfs their spread; columns are scaled first when squares could overflow.
+    dwarfs their spread; columns are scaled first when squares could overflow. The
+    per-column sums are numpy's; the k figures after them are Python floats (no
+    numpy call per step, and overflow is inf without a warning).
     """
     if not design.intercept:
         return None
     x = design.matrix
     w = design.weights
-    big = np.maximum(x.max(axis=0), -x.min(axis=0)) if x.shape[0] else np.zeros(x.shape[1])
-    extreme = not (big.size and 1e-150 < big.min() and big.max() < 1e150)
+    n, k = x.shape
+    big = np.abs(x).max(axis=0).tolist() if n else [0.0] * k
+    extreme = not (1e-150 < min(big) and max(big) < 1e150)
     if extreme:
-        big = np.where(big > 0, big, 1.0)
-        xs = x / big
+        big = [b if b > 0 else 1.0 for b in big]
+        xs = x / np.array(big)
     else:
         xs = x
     if w is None:
-        total = float(x.shape[0])
+        total = float(n)
         sums = xs.sum(axis=0)
         squares = np.einsum("ij,ij->j", xs, xs)
     else:
         total = float(np.sum(w))
         sums = w @ xs
         squares = np.einsum("i,ij,ij->j", w, xs, xs)
-    ss = squares - sums * sums / total
-    lost = ss <= 1e-6 * squares
-    lost[0] = False  # the intercept: no spread, and no VIF
-    if lost.any():
-        cols = np.flatnonzero(lost)
-        dev = xs[:, cols] - sums[cols] / total
-        ss[cols] = np.einsum("ij,ij->j", dev, dev) if w is None else \
+    sums, squares = sums.tolist(), squares.tolist()
+    ss = [math.nan]  # the intercept: no spread, and no VIF
+    lost = []
+    for j in range(1, k):
+        ss.append(squares[j] - sums[j] * sums[j] / total)
+        if ss[j] <= 1e-6 * squares[j]:
+            lost.append(j)
+    if lost:
+        dev = xs[:, lost] - np.array([sums[j] for j in lost]) / total
+        centred = np.einsum("ij,ij->j", dev, dev) if w is None else \
             np.einsum("i,ij,ij->j", w, dev, dev)
-    spread = np.sqrt(np.maximum(ss, 0.0))
+        for j, value in zip(lost, centred.tolist()):
+            ss[j] = value
+    # sqrt(max(ss, 0)) as numpy's: NaN stays NaN.
+    spread = [v if v != v else math.sqrt(v) if v > 0 else 0.0 for v in ss]
     if extreme:
-        spread *= big
-    spread[0] = np.nan
+        spread = [s * b for s, b in zip(spread, big)]
     return spread
 
 

@@ -121,7 +121,8 @@ def _ratio(b: float, s: float) -> float:
     return math.copysign(math.inf, b) * math.copysign(1.0, s)
 
 
-def _vif(solution: LeastSquares, column_spread: np.ndarray | None) -> list[float]:
+def _vif(solution: LeastSquares,
+         column_spread: np.ndarray | list[float] | None) -> list[float]:
     """``VIF_j = [(X'WX)^-1]_jj * sum_i w_i (x_ij - xbar_j)^2`` (with an intercept only).
 
     This equals ``1 / (1 - R_j^2)`` from the regression of column j on the others
@@ -130,8 +131,9 @@ def _vif(solution: LeastSquares, column_spread: np.ndarray | None) -> list[float
     if column_spread is None:
         return [math.nan] * solution.coefficients.shape[0]
     # Python floats: a product that overflows is inf, without a warning.
-    return [(r * c) * (r * c) for r, c in zip(solution.root_diagonal.tolist(),
-                                                column_spread.tolist())]
+    if isinstance(column_spread, np.ndarray):
+        column_spread = column_spread.tolist()
+    return [(r * c) * (r * c) for r, c in zip(solution.root_diagonal.tolist(), column_spread)]
 
 
 def simultaneous_multipliers(method: str, levels: tuple[float, ...], m: int,
@@ -154,7 +156,8 @@ def simultaneous_multipliers(method: str, levels: tuple[float, ...], m: int,
 
 def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: bool,
           levels: tuple[float, ...], log_weight_sum: float = 0.0,
-          column_spread: np.ndarray | None = None, covariance: str = "classical",
+          column_spread: np.ndarray | list[float] | None = None,
+          covariance: str = "classical",
           simultaneous: str | None = None) -> Inference:
     """The coefficient table and fit statistics of a solved least-squares problem.
 
@@ -166,8 +169,8 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
     centered : whether the model has an intercept
     levels : confidence levels in (0, 1)
     log_weight_sum : ``sum log w_i`` for the log likelihood (0 without weights)
-    column_spread : (k,) ``sqrt(sum w (x_j - xbar_j)^2)`` per column, for VIF (with an
-        intercept; NaN for the intercept itself), or None
+    column_spread : k values (array or list) ``sqrt(sum w (x_j - xbar_j)^2)`` per column,
+        for VIF (with an intercept; NaN for the intercept itself), or None
     covariance : one of :data:`service.stats.covariance.KINDS`; standard errors, t, p
         and intervals follow it
     simultaneous : None, ``"bonferroni"`` or ``"scheffe"``: add intervals that hold
