@@ -11,6 +11,7 @@ import numpy as np
 import orjson
 from flask import Blueprint, Flask, Response, current_app, request
 from werkzeug.exceptions import ClientDisconnected
+from werkzeug.sansio.utils import get_content_length
 
 from ..observability import record_shape
 from ..settings import Settings
@@ -69,8 +70,11 @@ def _drain(length: int) -> None:
 def _read_body() -> bytes:
     """The request body, refusing one over LINFER_MAX_BODY_BYTES with 413."""
     req = request._get_current_object()
+    environ = req.environ
     limit = current_app.config["MAX_CONTENT_LENGTH"]
-    length = req.content_length
+    # req.content_length, read from the environ its headers would wrap.
+    length = get_content_length(environ.get("CONTENT_LENGTH"),
+                                environ.get("HTTP_TRANSFER_ENCODING"))
     if length is not None and length > limit:
         # Read (and drop) a moderately oversized body before answering, so that a
         # client still sending it sees the 413 instead of a broken pipe; a body
@@ -82,7 +86,7 @@ def _read_body() -> bytes:
         # A chunked body has no length to refuse up front: read one byte past the
         # limit straight from the server's stream, so a longer body is a 413 and
         # never a silently truncated document.
-        raw = req.environ["wsgi.input"].read(limit + 1)
+        raw = environ["wsgi.input"].read(limit + 1)
         if len(raw) > limit:
             raise ApiProblem(413, "Content Too Large", body_limit_detail(),
                              "content_too_large")
@@ -90,16 +94,15 @@ def _read_body() -> bytes:
     # What request.get_data(cache=False) reads, without its stream wrappers: the
     # announced length, and a body cut short is a client that went away (400), unless
     # the server itself ends the stream (wsgi.input_terminated), as werkzeug has it.
-    environ = req.environ
     raw = environ["wsgi.input"].read(length)
     if len(raw) < length and "wsgi.input_terminated" not in environ:
         raise ClientDisconnected()
     return raw
 
 
-def _json_body() -> object:
-    """The parsed JSON body."""
-    mime = request.mimetype or ""
+def _json_body(mime: str | None = None) -> object:
+    """The parsed JSON body (``mime``: the request's mimetype, when already read)."""
+    mime = (request.mimetype if mime is None else mime) or ""
     if mime != "application/json" and not mime.endswith("+json"):
         raise ApiProblem(415, "Unsupported Media Type",
                          f"send the request as application/json, not {mime or 'no type'}",
@@ -168,8 +171,8 @@ def _hypothesis_problem(err: HypothesisError) -> ApiProblem:
     return invalid([FieldError(pointer(*parts), str(err))])
 
 
-def _request() -> tuple[Settings, object]:
-    return current_app.config["LINFER_SETTINGS"], _json_body()
+def _request(mime: str | None = None) -> tuple[Settings, object]:
+    return current_app.config["LINFER_SETTINGS"], _json_body(mime)
 
 
 # Accept headers that ask for JSON (or anything) in the words clients send most:
@@ -202,7 +205,7 @@ def fit_endpoint() -> Response:
             raise invalid([FieldError("", f"query parameter {name!r} is for CSV and Arrow "
                                       "bodies; with JSON, send the option in the body")
                            for name in req_.args])
-        settings, body = _request()
+        settings, body = _request(mimetype)
     req = decode_fit(body, settings)
     # The design holds its own copy of the numbers: let the parsed body (for JSON a
     # Python object per number, for Arrow and CSV the stream's buffers) go before the fit.
