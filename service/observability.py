@@ -8,12 +8,17 @@ writes to ``PROMETHEUS_MULTIPROC_DIR`` (set by service/gunicorn_config.py) and
 Access log: one JSON object a line on the ``linfer.access`` logger (stderr): time,
 request id, method, endpoint, status, rows, columns and duration in milliseconds.
 Never bodies, never query values.
+
+Request ids: the caller's ``X-Request-ID`` when it is a usable one (1 to 128 letters,
+digits and ``._:-``), else a new random one; the answer carries it back, and the
+access log line names it.
 """
 
 from __future__ import annotations
 
 import logging
 import os
+import re
 import sys
 import time
 from typing import Any
@@ -54,8 +59,22 @@ _latency_histograms: dict[str, Any] = {}
 _stamp: list = [None, ""]
 
 
+_REQUEST_ID = re.compile(r"^[A-Za-z0-9._:-]{1,128}$")
+_UUID_CLEAR = ~((0xc000 << 48) | (0xf000 << 64))
+_UUID_SET = (0x8000 << 48) | (4 << 76)
+
+
+def _new_id() -> str:
+    """A random (version 4) UUID in hex, as ``uuid.uuid4().hex`` writes it, without the
+    UUID object: the variant and version bits set on 128 random bits."""
+    return "%032x" % (int.from_bytes(os.urandom(16), "big") & _UUID_CLEAR | _UUID_SET)
+
+
 def _start() -> None:
-    g.started = time.perf_counter()
+    ctx = g._get_current_object()
+    given = request.environ.get("HTTP_X_REQUEST_ID", "")  # request.headers.get, less its wrapper
+    ctx.request_id = given if _REQUEST_ID.match(given) else _new_id()
+    ctx.started = time.perf_counter()
 
 
 def _now() -> str:
@@ -97,6 +116,7 @@ def _finish(response: Response) -> Response:
             handler.write_line(line)
         else:
             access_log.handle(_record(line))
+    response.headers["X-Request-ID"] = getattr(ctx, "request_id", None) or _new_id()
     return response
 
 
