@@ -74,7 +74,7 @@ def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
     """
     n = u.shape[0]
     centred = np.subtract(u, mean, out=u)  # u is the caller's own temporary
-    ss_tot = float(np.dot(centred, centred))
+    ss_tot = float(centred.dot(centred))
     if solution is not None and solution.factor is not None and solution.rank > 1:
         # With an intercept and no weights the auxiliary regressors are the model's own
         # columns, the constant among them: the model's QR factor projects onto them,
@@ -83,10 +83,10 @@ def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
         if ss_tot == 0:
             return math.nan, rank, math.nan
         if solution.thin_q is not None:
-            coordinates = np.dot(centred, solution.thin_q)
+            coordinates = centred.dot(solution.thin_q)
         else:
             coordinates = solution.project(centred)
-        lm = n * float(np.dot(coordinates, coordinates)) / ss_tot
+        lm = n * float(coordinates.dot(coordinates)) / ss_tot
         return lm, rank, _chdtrc(float(rank), lm)
     z = x[:, 1:] if intercept else x
     z = z[:, np.ptp(z, axis=0) > 0] if z.size else z
@@ -98,7 +98,7 @@ def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
     coef, _, rank_a, _ = np.linalg.lstsq(a, centred, rcond=None)
     rank = int(rank_a) - 1
     spread = a @ coef
-    lm = n * float(np.dot(spread, spread)) / ss_tot
+    lm = n * float(spread.dot(spread)) / ss_tot
     return lm, rank, _chdtrc(float(rank), lm) if rank > 0 else math.nan
 
 
@@ -118,7 +118,9 @@ def _order_statistics(values: np.ndarray) -> np.ndarray:
     full sort would put there (``numpy.partition`` at those positions: linear time)."""
     n = values.shape[0]
     if n <= 1_000:
-        return np.sort(values)
+        ordered = values.copy()  # np.sort's copy and sort, without its dispatch
+        ordered.sort()
+        return ordered
     wanted = sorted({i for _, low, _, high in _quantile_positions(n) for i in (low, high)})
     return np.partition(values, wanted)
 
@@ -153,19 +155,19 @@ def check_residuals(solution: LeastSquares, x: np.ndarray, weights: np.ndarray |
     e = raw / top if top > 0 else raw
     d = e - float(np.add.reduce(e)) / n
     d2 = d * d
-    m2 = float(np.dot(d, d)) / n
+    m2 = float(d.dot(d)) / n
     if m2 > 0:
-        skew = float(np.dot(d2, d)) / n / m2 ** 1.5
-        kurt = float(np.dot(d2, d2)) / n / m2 ** 2
+        skew = float(d2.dot(d)) / n / m2 ** 1.5
+        kurt = float(d2.dot(d2)) / n / m2 ** 2
         jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)
         jb_p = math.exp(-jb / 2.0)
     else:
         skew = kurt = jb = jb_p = math.nan
     del d, d2
-    ss = float(np.dot(e, e))
+    ss = float(e.dot(e))
     if ss > 0 and n > 1:
         step = e[1:] - e[:-1]
-        dw = float(np.dot(step, step)) / ss
+        dw = float(step.dot(step)) / ss
         del step
     else:
         dw = math.nan
