@@ -344,23 +344,11 @@ def load_envelope(schema: Schema, body: dict[str, Any]) -> dict[str, Any]:
     afterwards: the same data and the same errors (the schema-level validators read no
     defaulted field), at a fraction of the work.
     """
-    present = frozenset(body.keys() & schema.load_fields.keys())
-    if (present == _BARE_FIT and len(body) == 2 and type(schema) is FitRequestSchema
-            and body["design_matrix"] is not None and body["response"] is not None):
-        # The body a /v1/fit request most often is: the two arrays, nothing else. Both
-        # fields pass their values through (Raw, null refused) and the layout validator
-        # accepts the pair, so the load would give the body's own two values.
-        data = dict(body)
-        defaults = _narrowed(schema, present)[1]
-    else:
-        narrow, defaults = _narrowed(schema, present)
-        data = narrow.load(body)
+    narrow, defaults = _narrowed(schema, frozenset(body.keys() & schema.load_fields.keys()))
+    data = narrow.load(body)
     for name, default in defaults:
         data[name] = default() if callable(default) else default
     return data
-
-
-_BARE_FIT = frozenset({"design_matrix", "response"})
 
 
 @functools.lru_cache(maxsize=256)
