@@ -21,6 +21,7 @@ and HC3 are undefined there and come back as NaN.
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -48,6 +49,26 @@ class CovarianceEstimate:
     root: np.ndarray | None = None
 
 
+_QUIET = contextlib.nullcontext()
+
+
+def _bounded(s: float, root_diagonal: np.ndarray) -> bool:
+    """Whether ``s^2 (X'WX)^-1``, ``s r`` and ``s G`` are sure to stay finite (and meet
+    no ``0 * inf``), so that numpy's floating-point checks need not be silenced.
+
+    With ``r_i = sqrt([(X'WX)^-1]_ii)``: ``|[(X'WX)^-1]_ij| <= r_i r_j`` (a covariance
+    factor is positive semi-definite) and ``|G_ij| <= r_i`` (the rows of G have norm
+    r_i), so ``s < 1e150`` (``s^2`` is formed first) and every ``r_i`` below
+    ``1e150 / max(s, 1)`` bound them all far below the largest double. A NaN s (no
+    residual df) only makes NaNs; a NaN r_i (an aliased column) or an infinite one
+    fails the test.
+    """
+    if s >= 1e150:
+        return False
+    limit = 1e150 / s if s > 1.0 else 1e150
+    return all(r < limit for r in root_diagonal.tolist())
+
+
 def estimate_covariance(solution: LeastSquares, kind: str, n: int,
                         sigma: float, perfect_fit: bool) -> CovarianceEstimate:
     """The covariance of the estimates of ``kind`` (one of :data:`KINDS`).
@@ -58,8 +79,9 @@ def estimate_covariance(solution: LeastSquares, kind: str, n: int,
     k = solution.coefficients.shape[0]
     df = n - solution.rank
     if kind == "classical" or perfect_fit or df <= 0:
-        with np.errstate(over="ignore", invalid="ignore"):
-            s = 0.0 if perfect_fit and df > 0 else sigma
+        s = 0.0 if perfect_fit and df > 0 else sigma
+        with _QUIET if _bounded(s, solution.root_diagonal) else \
+                np.errstate(over="ignore", invalid="ignore"):
             matrix = s * s * solution.covariance_factor
             se = s * solution.root_diagonal
             root = s * solution.covariance_root if kind == "classical" else None

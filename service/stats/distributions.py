@@ -18,7 +18,7 @@ import numpy as np
 from scipy import special
 from scipy.special import cython_special as _scalar
 
-__all__ = ["t_two_sided_p", "t_quantile", "f_upper_p", "f_quantile"]
+__all__ = ["t_two_sided_p", "t_two_sided_p_float", "t_quantile", "f_upper_p", "f_quantile"]
 
 _betainc = _scalar.betainc
 _betaincc = _scalar.betaincc
@@ -50,14 +50,20 @@ def t_two_sided_p(t: np.ndarray | float, df: float) -> np.ndarray | float:
     """
     if isinstance(t, float) and isinstance(df, _REAL):
         t, df = float(t), float(df)  # Python floats: overflow to inf, NaN, no warnings
-        t2 = t * t
-        s = df + t2
-        if s != 0.0:
-            x = df / s
-            if x <= 0.5:
-                return _betainc(0.5 * df, 0.5, x)
-            return _betaincc(0.5, 0.5 * df, t2 / s)
+        if df + t * t != 0.0:
+            return t_two_sided_p_float(t, df)
     return _t_two_sided_p_array(np.asarray(t, dtype=float), df)
+
+
+def t_two_sided_p_float(t: float, df: float) -> float:
+    """:func:`t_two_sided_p` for Python floats with ``df + t^2 != 0`` (``df > 0``, say),
+    without the type checks: for callers that hold such floats already."""
+    t2 = t * t
+    s = df + t2
+    x = df / s
+    if x <= 0.5:
+        return _betainc(0.5 * df, 0.5, x)
+    return _betaincc(0.5, 0.5 * df, t2 / s)
 
 
 def t_quantile(probability: np.ndarray | float, df: float) -> np.ndarray | float:

@@ -8,13 +8,14 @@ distributions to hold exactly.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from .covariance import CovarianceEstimate, estimate_covariance
-from .distributions import f_quantile, f_upper_p, t_quantile, t_two_sided_p
+from .distributions import f_quantile, f_upper_p, t_quantile, t_two_sided_p_float
 from .lstsq import EPS, LeastSquares
 from .notices import direct_init
 
@@ -136,6 +137,13 @@ def _vif(solution: LeastSquares,
     return [(r * c) * (r * c) for r, c in zip(solution.root_diagonal.tolist(), column_spread)]
 
 
+@functools.lru_cache(maxsize=256)
+def _t_multiplier(level: float, df: int) -> float:
+    """``t_{(1+level)/2, df}``, the half-width of a two-sided interval at ``level`` in
+    standard errors; cached, since a service sees the same few levels and df again."""
+    return float(-t_quantile((1.0 - level) / 2.0, df))
+
+
 def simultaneous_multipliers(method: str, levels: tuple[float, ...], m: int,
                              df: float) -> list[float]:
     """Half-width multipliers (in standard errors) for m intervals holding jointly.
@@ -191,11 +199,11 @@ def infer(solution: LeastSquares, names: tuple[str, ...], n: int, *, centered: b
     k = len(estimates)
     if df > 0 and not perfect:
         t = [_ratio(b, s_j) for b, s_j in zip(estimates, se)]
-        pv = [t_two_sided_p(v, df) for v in t]
+        fdf = float(df)  # df > 0: df + t^2 is never 0
+        pv = [t_two_sided_p_float(v, fdf) for v in t]
     else:
         t = pv = [math.nan] * k
-    quantiles = [float(-t_quantile((1.0 - lv) / 2.0, df)) if df > 0 else math.nan
-                 for lv in levels]
+    quantiles = [_t_multiplier(lv, df) if df > 0 else math.nan for lv in levels]
     joint = (simultaneous_multipliers(simultaneous, levels, p, df)
              if simultaneous else [])
     vif = _vif(solution, column_spread)
