@@ -18,7 +18,7 @@ from ..settings import Settings
 from ..stats.design import INTERCEPT, Design
 from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit, fit_summary
 from ..stats.hypotheses import HypothesisError, test_hypotheses
-from ..stats.lstsq import RankDeficient
+from ..stats.lstsq import RankDeficient, ResponseScaleOutOfRange
 from ..stats.model import ModelSummary
 from ..stats.predict import predict
 from ..stats.summaries import Summary, SummaryError
@@ -130,6 +130,11 @@ def _run_fit(design: Design, options: FitOptions, pointers: dict[str, str]) -> F
                                   f"least {err.k + 1} rows for any inference")]) from None
     except RankDeficient as err:
         raise _rank_problem(err, design.names, pointers) from None
+    except ResponseScaleOutOfRange as err:
+        table = any(p.startswith("/table") for p in pointers.values())
+        where = "/weights" if design.weights is not None else \
+            ("/response_column" if table else "/response")
+        raise invalid([FieldError(where, str(err))]) from None
     except HypothesisError as err:
         raise _hypothesis_problem(err) from None
 
@@ -144,6 +149,8 @@ def _run_summary(summary: Summary, options: FitOptions,
             from None
     except RankDeficient as err:
         raise _rank_problem(err, summary.names, pointers) from None
+    except ResponseScaleOutOfRange as err:
+        raise invalid([FieldError("/summary", str(err))]) from None
     except HypothesisError as err:
         raise _hypothesis_problem(err) from None
 

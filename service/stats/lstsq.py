@@ -37,7 +37,8 @@ import mpmath
 import numpy as np
 from scipy.linalg import blas, lapack
 
-__all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "extended_work", "solve"]
+__all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "ResponseScaleOutOfRange",
+           "extended_work", "solve"]
 
 EPS = float(np.finfo(float).eps)
 LONG_EPS = float(np.finfo(np.longdouble).eps)
@@ -56,6 +57,25 @@ class Alias:
 
     column: int
     relation: tuple[tuple[int, float], ...]
+
+
+# The weighted response's scale |sqrt(W) y| must lie between 2^-960 and 2^1020: then it,
+# its sums of squares' roots and residuals down to 2^-60 (about 1e-18) of it are normal
+# doubles. Outside, the norms the inference divides by would overflow or underflow.
+SCALE_EXPONENTS = (-960, 1020)
+
+
+class ResponseScaleOutOfRange(Exception):
+    """``|sqrt(W) y|`` is about ``2^exponent``, outside :data:`SCALE_EXPONENTS`."""
+
+    def __init__(self, exponent: int):
+        low, high = SCALE_EXPONENTS
+        super().__init__(
+            f"the response's scale, sqrt(sum w y^2), is about 1e{exponent * math.log10(2):.0f}: "
+            f"outside what double precision carries with room for the residuals (1e"
+            f"{low * math.log10(2):.0f} to 1e{high * math.log10(2):.0f}); divide the "
+            "response (or the weights) by a power of ten and scale the results back")
+        self.exponent = exponent
 
 
 class RankDeficient(Exception):
@@ -657,28 +677,46 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     RankDeficient
         The design's numerical rank is below its column count and ``drop_aliased``
         is false.
+    ResponseScaleOutOfRange
+        ``|sqrt(W) y|`` is too large or too small for the sums of squares to be held.
 
     Notes
     -----
     See the module docstring for the algorithm and its references.
     """
     n, k = x.shape
-    sw = None if weights is None else np.sqrt(weights)
-    xw = x if sw is None else np.multiply(x, sw[:, None], out=np.empty(x.shape, order="F"))
-    e_col = _power_of_two_exponents(xw)
-    e_y = _power_of_two_exponent(y if sw is None else y * sw)
+    if weights is None:
+        sw = None
+        xw = x
+        shift = 0
+        e_norm = _power_of_two_exponents(xw)
+        e_y = _power_of_two_exponent(y)
+    else:
+        # sqrt(W) X and sqrt(W) y are formed with the root weights scaled by 2^-shift
+        # (largest in [0.5, 1)), so that neither overflows nor underflows for weights and
+        # data near the ends of the double range; A and the scaled response are the same
+        # numbers, their exponents carry the shift.
+        sw = np.sqrt(weights)
+        shift = math.frexp(float(sw.max()))[1] if sw.size else 0
+        sw_unit = np.ldexp(sw, -shift)
+        xw = np.multiply(x, sw_unit[:, None], out=np.empty(x.shape, order="F"))
+        e_norm = _power_of_two_exponents(xw)
+        e_y = _power_of_two_exponent(y * sw_unit) + shift
+    e_col = e_norm + shift  # A = sqrt(W) X 2^-e_col = xw 2^-e_norm
+    if np.any(y) and not SCALE_EXPONENTS[0] <= e_y <= SCALE_EXPONENTS[1]:
+        raise ResponseScaleOutOfRange(e_y)
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
     # Large designs: at most three copies of the data at the peak (the caller's, sqrt(W) X
     # or A, and the factor); see _Equilibrated.
     large = xw.size > REFINE_ALWAYS_CELLS
     if large and sw is not None:
-        a = np.ldexp(xw, -e_col[None, :], out=xw)  # xw is this call's own copy
+        a = np.ldexp(xw, -e_norm[None, :], out=xw)  # xw is this call's own copy
         held = _Equilibrated(a)
     else:
         # Fortran order from the start: LAPACK factors it without another copy.
-        a = np.ldexp(xw, -e_col[None, :], out=np.empty(xw.shape, order="F"))
-        held = _Equilibrated(xw, e_col) if large else _Equilibrated(a)
+        a = np.ldexp(xw, -e_norm[None, :], out=np.empty(xw.shape, order="F"))
+        held = _Equilibrated(xw, e_norm) if large else _Equilibrated(a)
     qr, pivots, tau = _householder(a, overwrite=large and sw is None)
     diag = np.abs(qr.diagonal())
     rows = n if rank_rows is None else rank_rows
@@ -702,7 +740,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
             held = _Equilibrated(held.held[:, kept])
             qr, pivots, tau = _householder(held.held)
         else:
-            held = _Equilibrated(xw[:, kept], e_col[kept])
+            held = _Equilibrated(xw[:, kept], e_norm[kept])
             qr, pivots, tau = _householder(
                 np.ldexp(held.held, -held.exponents[None, :]), overwrite=True)
     rk = qr[:len(kept), :len(kept)] * _upper_mask(len(kept))
