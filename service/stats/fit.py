@@ -214,6 +214,33 @@ def _notices(design: Design, result: Inference, cond: Conditioning,
             out.append(Notice("p_value_underflow", f"The p value of {c.name} is below the "
                               "smallest double (about 1e-308) and is reported as 0.",
                               column=c.name))
+    out.extend(_overflow_notices(result))
+    return out
+
+
+def _overflow_notices(result: Inference) -> list[Notice]:
+    """Figures that exist but exceed the double range (about 1e308), so are null."""
+    out = []
+    sigma = result.fit.residual_standard_deviation
+    spread_known = result.residual_df > 0 and math.isfinite(sigma) and sigma > 0
+    for c in result.coefficients:
+        if not c.estimable:
+            continue
+        if math.isinf(c.estimate) or (spread_known and math.isinf(c.standard_error)):
+            out.append(Notice("overflow", (
+                f"The estimate or standard error of {c.name} exceeds the range of double "
+                "precision (about 1e308) and is null, with its t statistic, p value and "
+                "intervals. Rescale that predictor (or the response) by a power of ten and "
+                "scale the coefficient back."), column=c.name))
+    sums = result.fit
+    if math.isfinite(sigma) and not all(
+            math.isfinite(v) for v in (sums.residual_sum_of_squares,
+                                       sums.regression_sum_of_squares,
+                                       sums.total_sum_of_squares)):
+        out.append(Notice("overflow", (
+            "A sum of squares exceeds the range of double precision (about 1e308) and is "
+            "null; the residual standard deviation, R squared and the tests do not need it. "
+            "Rescale the response by a power of ten to see it.")))
     return out
 
 

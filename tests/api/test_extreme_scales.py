@@ -51,7 +51,21 @@ def test_extreme_but_holdable_scales_fit_as_at_unit_scale(client, y_scale, w_sca
     sd = base["fit"]["residual_standard_deviation"] * y_scale * math.sqrt(w_scale or 1.0)
     assert doc["fit"]["residual_standard_deviation"] == pytest.approx(sd, rel=1e-12)
     assert doc["fit"]["r_squared"] == pytest.approx(base["fit"]["r_squared"], rel=1e-12)
-    assert [w["code"] for w in doc["warnings"]] == [w["code"] for w in base["warnings"]]
+    # Sums of squares beyond the double range are null, and a warning says so.
+    beyond = doc["fit"]["residual_sum_of_squares"] is None
+    assert beyond == (2 * math.log10(y_scale) + math.log10(w_scale or 1.0) > 300)
+    assert [w["code"] for w in doc["warnings"]] == \
+        [w["code"] for w in base["warnings"]] + (["overflow"] if beyond else [])
+
+
+def test_estimates_beyond_double_precision_are_null_with_a_warning(client):
+    got = client.post("/v1/fit", json={"design_matrix": (X * 1e-150).tolist(),
+                                       "response": (Y * 1e280).tolist()}).get_json()
+    slopes = got["coefficients"][1:]
+    assert [c["estimate"] for c in slopes] == [None, None]
+    flagged = [w for w in got["warnings"] if w["code"] == "overflow" and "x" in w["message"]]
+    assert [w["pointer"] for w in flagged if "estimate" in w["message"]] == \
+        ["/design_matrix/0/0", "/design_matrix/0/1"]
 
 
 @pytest.mark.parametrize("y_scale, w_scale, where", [
