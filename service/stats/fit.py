@@ -98,7 +98,8 @@ def _column_spread(design: Design) -> list[float] | None:
     x = design.matrix
     w = design.weights
     n, k = x.shape
-    big = np.abs(x).max(axis=0).tolist() if n else [0.0] * k
+    # max |x| per column from the maxima and minima: no n x k temporary of |x|.
+    big = np.maximum(x.max(axis=0), -x.min(axis=0)).tolist() if n else [0.0] * k
     extreme = not (1e-150 < min(big) and max(big) < 1e150)
     if extreme:
         big = [b if b > 0 else 1.0 for b in big]
