@@ -174,20 +174,17 @@ class LeastSquares:
     factor: tuple[np.ndarray, np.ndarray] | None = None
     thin_q: np.ndarray | None = None
 
-    def project(self, v: np.ndarray) -> np.ndarray:
-        """The orthogonal projection of ``v`` on the span of the kept ``sqrt(W) X``.
-
-        ``Q_1 Q_1' v`` from the Householder factor (``factor``: LAPACK's packed QR and
-        tau; ``thin_q``: its first ``rank`` columns of Q, kept for small problems).
-        """
+    def coordinates(self, v: np.ndarray) -> np.ndarray:
+        """``Q_1' v``: the coordinates of the orthogonal projection of ``v`` on the span
+        of the kept ``sqrt(W) X`` (the projection is ``Q_1 Q_1' v``; its norm is theirs).
+        From the Householder factor (``factor``: LAPACK's packed QR and tau; ``thin_q``:
+        the first ``rank`` columns of Q, kept for small problems)."""
         if self.factor is None:
             raise ValueError("this solution keeps no factor")
         if self.thin_q is not None:
-            return self.thin_q @ (self.thin_q.T @ v)
+            return self.thin_q.T @ v
         qr, tau = self.factor
-        coordinates = _apply_qt(qr, tau, v)
-        coordinates[self.rank:] = 0.0
-        return _apply_q(qr, tau, coordinates)
+        return _apply_qt(qr, tau, v)[:self.rank]
 
 
 def extended_work(n: int, k: int) -> int:

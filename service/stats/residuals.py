@@ -82,10 +82,7 @@ def _breusch_pagan(u: np.ndarray, mean: float, x: np.ndarray, intercept: bool,
         rank = solution.rank - 1
         if ss_tot == 0:
             return math.nan, rank, math.nan
-        if solution.thin_q is not None:
-            coordinates = centred.dot(solution.thin_q)
-        else:
-            coordinates = solution.project(centred)
+        coordinates = solution.coordinates(centred)
         lm = n * float(coordinates.dot(coordinates)) / ss_tot
         return lm, rank, _chdtrc(float(rank), lm)
     z = x[:, 1:] if intercept else x
