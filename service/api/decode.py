@@ -17,7 +17,6 @@ from ..settings import Settings
 from ..stats.design import INTERCEPT, Design, build_design
 from ..stats.fit import FitOptions
 from ..stats.hypotheses import Hypothesis, Restriction
-from ..stats.notices import direct_init
 from ..stats.summaries import Summary
 from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term,
                            TermError, expand_terms)
@@ -31,7 +30,6 @@ __all__ = ["FitRequest", "decode_fit", "decode_design", "decode_summary", "fit_o
 _SCHEMA = FitRequestSchema()
 
 
-@direct_init
 @dataclass(frozen=True)
 class FitRequest:
     """A validated /v1/fit request. ``column_pointers`` maps design column names to pointers."""

@@ -22,7 +22,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from .lstsq import Alias, LeastSquares
-from .notices import direct_init
 
 __all__ = ["Conditioning", "assess", "CONDITION_INDEX_LIMIT", "PROPORTION_LIMIT"]
 
@@ -30,7 +29,6 @@ CONDITION_INDEX_LIMIT = 30.0
 PROPORTION_LIMIT = 0.5
 
 
-@direct_init
 @dataclass(frozen=True)
 class CollinearSet:
     """Columns whose coefficient variances one near-dependency inflates."""
@@ -40,7 +38,6 @@ class CollinearSet:
     proportions: tuple[float, ...]
 
 
-@direct_init
 @dataclass(frozen=True)
 class Conditioning:
     """The verdict on the design.

@@ -27,14 +27,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from .lstsq import LeastSquares
-from .notices import direct_init
 
 __all__ = ["KINDS", "CovarianceEstimate", "estimate_covariance"]
 
 KINDS = ("classical", "hc0", "hc1", "hc2", "hc3")
 
 
-@direct_init
 @dataclass(frozen=True)
 class CovarianceEstimate:
     """``matrix`` (k x k, NaN for aliased columns) and ``standard_errors`` (overflow-safe).

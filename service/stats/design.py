@@ -8,7 +8,6 @@ from typing import Sequence
 
 import numpy as np
 
-from .notices import direct_init
 from .terms import ExactColumns, TermInfo
 
 __all__ = ["Design", "build_design", "INTERCEPT"]
@@ -16,7 +15,6 @@ __all__ = ["Design", "build_design", "INTERCEPT"]
 INTERCEPT = "intercept"
 
 
-@direct_init
 @dataclass(frozen=True)
 class Design:
     """The arrays a fit works on.

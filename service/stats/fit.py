@@ -14,7 +14,7 @@ from .hypotheses import Hypothesis, HypothesisResult, Restriction, test_hypothes
 from .inference import FTest, Inference, infer
 from .lstsq import Alias, LeastSquares, solve
 from .model import ModelSummary
-from .notices import Notice, direct_init
+from .notices import Notice
 from .residuals import Influence, ResidualChecks, check_residuals, influence
 from .summaries import Summary, solve_summary
 
@@ -33,7 +33,6 @@ class TooFewObservations(Exception):
         self.k = k
 
 
-@direct_init
 @dataclass(frozen=True)
 class FitOptions:
     levels: tuple[float, ...] = (0.95,)
@@ -46,7 +45,6 @@ class FitOptions:
     include_influence: bool = False
 
 
-@direct_init
 @dataclass(frozen=True)
 class Numerics:
     """How the answer was computed and how many of its digits it vouches for."""
@@ -56,7 +54,6 @@ class Numerics:
     estimated_correct_digits: float
 
 
-@direct_init
 @dataclass(frozen=True)
 class FitResult:
     design: Design

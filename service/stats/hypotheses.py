@@ -19,7 +19,6 @@ from scipy import linalg
 
 from .distributions import f_upper_p
 from .model import ModelSummary
-from .notices import direct_init
 
 __all__ = ["Restriction", "Hypothesis", "HypothesisResult", "HypothesisError", "test_hypotheses"]
 
@@ -40,7 +39,6 @@ class Hypothesis:
     restrictions: tuple[Restriction, ...]
 
 
-@direct_init
 @dataclass(frozen=True)
 class HypothesisResult:
     label: str | None

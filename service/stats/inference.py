@@ -17,7 +17,6 @@ import numpy as np
 from .covariance import CovarianceEstimate, estimate_covariance
 from .distributions import f_quantile, f_upper_p, t_quantile, t_two_sided_p_float
 from .lstsq import EPS, LeastSquares
-from .notices import direct_init
 
 __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "infer",
            "is_perfect_fit", "SIMULTANEOUS", "simultaneous_multipliers"]
@@ -25,7 +24,6 @@ __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "in
 SIMULTANEOUS = ("bonferroni", "scheffe")
 
 
-@direct_init
 @dataclass(frozen=True)
 class Interval:
     """A two-sided confidence interval at ``level``."""
@@ -35,7 +33,6 @@ class Interval:
     upper: float
 
 
-@direct_init
 @dataclass(frozen=True)
 class Coefficient:
     """One row of the coefficient table.
@@ -56,7 +53,6 @@ class Coefficient:
     vif: float
 
 
-@direct_init
 @dataclass(frozen=True)
 class FitStatistics:
     """Goodness of fit.
@@ -83,7 +79,6 @@ class FitStatistics:
     centered: bool
 
 
-@direct_init
 @dataclass(frozen=True)
 class FTest:
     """``statistic ~ F(numerator_df, denominator_df)`` under the null; ``p_value = P(F >= statistic)``."""
@@ -94,7 +89,6 @@ class FTest:
     p_value: float
 
 
-@direct_init
 @dataclass(frozen=True)
 class Inference:
     n_observations: int

@@ -6,14 +6,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .notices import direct_init
 
 __all__ = ["ModelSummary", "MODEL_VERSION"]
 
 MODEL_VERSION = 1
 
 
-@direct_init
 @dataclass(frozen=True)
 class ModelSummary:
     """A fitted model, as /v1/fit returns it with ``return_model``.

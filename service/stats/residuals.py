@@ -28,7 +28,6 @@ import numpy as np
 from scipy.special import cython_special
 
 from .lstsq import LeastSquares
-from .notices import direct_init
 
 __all__ = ["ResidualChecks", "Influence", "check_residuals", "influence"]
 
@@ -36,7 +35,6 @@ _PROBS = (0.0, 0.25, 0.5, 0.75, 1.0)
 _chdtrc = cython_special.chdtrc  # chi-square upper tail, scipy.special.chdtrc on floats
 
 
-@direct_init
 @dataclass(frozen=True)
 class ResidualChecks:
     quantiles: tuple[tuple[float, float], ...]
@@ -50,7 +48,6 @@ class ResidualChecks:
     breusch_pagan_p_value: float
 
 
-@direct_init
 @dataclass(frozen=True)
 class Influence:
     leverage: np.ndarray
