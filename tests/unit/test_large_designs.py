@@ -59,3 +59,17 @@ def test_large_aliased_column_is_dropped_and_the_rest_fitted(weighted):
     expected, *_ = np.linalg.lstsq(x[:, :4] * sw[:, None], y * sw, rcond=None)
     np.testing.assert_allclose(sol.coefficients[:4], expected, rtol=1e-10)
     assert np.isnan(sol.coefficients[4])
+
+
+def test_scaled_products_stay_exact_when_the_rescaled_coefficients_would_not_be():
+    from service.stats.lstsq import _Equilibrated
+    # 2^-e b underflows for the second column: A b must then come from A itself.
+    held = np.asfortranarray(np.array([[1.0, 2.0**1000], [3.0, 2.0**1001]]))
+    e = np.array([0, 1100], dtype=np.intc)
+    b = np.array([0.0, 2.0**-60])
+    a = np.ldexp(held, -e[None, :])
+    assert np.array_equal(a @ b, [2.0**-160, 2.0**-159])  # held @ (2^-e b) would be 0
+    np.testing.assert_array_equal(_Equilibrated(held, e).times(b), a @ b)
+    np.testing.assert_array_equal(_Equilibrated(a).times(b), a @ b)
+    np.testing.assert_array_equal(_Equilibrated(held, e).long_double(),
+                                  a.astype(np.longdouble))
