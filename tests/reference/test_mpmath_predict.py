@@ -34,19 +34,18 @@ from __future__ import annotations
 import json
 import math
 from functools import lru_cache
-from pathlib import Path
 
 import mpmath
 import numpy as np
 import pytest
 from scipy import stats as scipy_stats
 
+from demo_data import demo_table
 from service.app import create_app
 
 DPS = 50
 MIN_DIGITS = 12.0
 LEVELS = [0.9, 0.99]
-DEMO = Path(__file__).resolve().parents[2] / "client_examples" / "data" / "warehouse_energy_table.json"
 
 
 # --------------------------------------------------------------------------- reference
@@ -228,15 +227,8 @@ def _random(weighted):
 
 
 def _demo(weighted):
-    body = json.loads(DEMO.read_text(encoding="utf-8"))
-    table = body["table"]
-    cols = [c for c in table if c != body["response_column"]]
-    x = np.column_stack([table[c] for c in cols])
-    y = np.asarray(table[body["response_column"]], dtype=float)
-    w = None
-    if weighted:
-        w = np.random.default_rng(99).uniform(0.5, 2.0, y.size)
-        body = {**body, "weights": w.tolist()}
+    demo = demo_table(weight_seed=99 if weighted else None)
+    body, cols, x, y, w = demo.body, demo.names, demo.x, demo.y, demo.w
     new = [[10.0, 200.0, 60.0], [-5.0, 100.0, 20.0], [30.0, 400.0, 120.0]]
     hyps = [("doors and pallets", [({"door_openings": 1}, 0.0), ({"pallets_received": 1}, 0.0)]),
             ("equal effects", [({"door_openings": 1, "pallets_received": -1}, 0.0)]),

@@ -27,7 +27,6 @@ client_examples/data/warehouse_energy_table.json, each without and with weights.
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -38,10 +37,9 @@ from statsmodels.stats.diagnostic import het_breuschpagan
 from statsmodels.stats.outliers_influence import OLSInfluence
 from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
+from demo_data import demo_table
 from service.app import create_app
 
-REPO = Path(__file__).resolve().parents[2]
-DEMO = REPO / "client_examples" / "data" / "warehouse_energy_table.json"
 
 RTOL = 1e-10          # standard errors, estimates, statistics
 RTOL_P = 1e-9         # p values (scipy's t / F / chi-square tails in statsmodels)
@@ -115,15 +113,8 @@ def _random_case(weighted):
 
 
 def _demo_case(weighted):
-    body = json.loads(DEMO.read_text(encoding="utf-8"))
-    table = body["table"]
-    names = [c for c in table if c != body["response_column"]]
-    x = np.column_stack([table[c] for c in names])
-    y = np.asarray(table[body["response_column"]], dtype=float)
-    w = None
-    if weighted:
-        w = np.random.default_rng(7).uniform(0.5, 2.0, y.size)
-        body = {**body, "weights": w.tolist()}
+    demo = demo_table(weight_seed=7 if weighted else None)
+    body, names, x, y, w = demo.body, demo.names, demo.x, demo.y, demo.w
     hyps = [("doors and pallets", [({"door_openings": 1}, 0.0), ({"pallets_received": 1}, 0.0)]),
             ("equal effects", [({"door_openings": 1, "pallets_received": -1}, 0.0)]),
             ("temperature 37", [({"temp_c": 1}, 37.0)])]

@@ -37,12 +37,12 @@ from __future__ import annotations
 
 import json
 import math
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pytest
 
+from demo_data import demo_table
 from pointers import resolve
 import statsmodels.api as sm
 from scipy import linalg
@@ -50,8 +50,6 @@ from scipy import linalg
 from service.app import create_app
 from service.client import merge_summaries, summary_from_arrays
 
-REPO = Path(__file__).resolve().parents[2]
-DATA = REPO / "client_examples" / "data"
 
 EPS = np.finfo(float).eps
 RTOL = 1e-12
@@ -173,11 +171,8 @@ def _rank_deficient_case(mode: str) -> Case:
 
 
 def _demo_case(file: str, name: str) -> Case:
-    body = json.loads((DATA / file).read_text(encoding="utf-8"))
-    table = body["table"]
-    names = [c for c in table if c != body["response_column"]]
-    return Case(name, np.column_stack([table[c] for c in names]),
-                np.asarray(table[body["response_column"]], dtype=float), names,
+    demo = demo_table(file)
+    return Case(name, demo.x, demo.y, demo.names,
                 hypotheses=[_hyp("doors and pallets", ({"door_openings": 1}, 0.0),
                                  ({"pallets_received": 1}, 0.0))])
 
