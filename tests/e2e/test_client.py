@@ -8,6 +8,7 @@ the environment). Every helper server is shut down by its fixture.
 
 from __future__ import annotations
 
+import contextlib
 import http.server
 import inspect
 import json
@@ -17,7 +18,7 @@ import struct
 import sys
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -281,11 +282,12 @@ class Hanging:
     accepted: list[socket.socket] = field(default_factory=list)
 
 
-@pytest.fixture
-def hanging() -> Iterator[Hanging]:
+@contextlib.contextmanager
+def _accepting(handle: Callable[[socket.socket], None]) -> Iterator[str]:
+    """A listener on 127.0.0.1 whose thread passes each accepted connection to ``handle``;
+    yields its URL and stops (thread joined, listener closed) on exit."""
     listener = socket.create_server((HOST, 0))
     listener.settimeout(0.1)
-    server = Hanging(f"http://{HOST}:{listener.getsockname()[1]}")
     stop = threading.Event()
 
     def accept() -> None:
@@ -294,46 +296,41 @@ def hanging() -> Iterator[Hanging]:
                 conn, _ = listener.accept()
             except (TimeoutError, OSError):
                 continue
-            server.accepted.append(conn)
+            handle(conn)
 
     thread = threading.Thread(target=accept, daemon=True)
     thread.start()
     try:
-        yield server
+        yield f"http://{HOST}:{listener.getsockname()[1]}"
     finally:
         stop.set()
         thread.join(timeout=5)
-        for conn in server.accepted:
-            conn.close()
         listener.close()
+
+
+@pytest.fixture
+def hanging() -> Iterator[Hanging]:
+    accepted: list[socket.socket] = []
+    try:
+        with _accepting(accepted.append) as url:
+            yield Hanging(url, accepted)
+    finally:  # after the accepting thread has stopped: no connection comes in late
+        for conn in accepted:
+            conn.close()
 
 
 @pytest.fixture
 def resetting() -> Iterator[tuple[str, list[int]]]:
     """Accepts each connection and resets it at once (RST: SO_LINGER with timeout 0)."""
-    listener = socket.create_server((HOST, 0))
-    listener.settimeout(0.1)
     count = [0]
-    stop = threading.Event()
 
-    def accept() -> None:
-        while not stop.is_set():
-            try:
-                conn, _ = listener.accept()
-            except (TimeoutError, OSError):
-                continue
-            count[0] += 1
-            conn.setsockopt(socket.SOL_SOCKET, socket.SO_LINGER, struct.pack("ii", 1, 0))
-            conn.close()
+    def reset(conn: socket.socket) -> None:
+        count[0] += 1
+        conn.setsockopt(socket.SOL_SOCKET, socket.SO_LINGER, struct.pack("ii", 1, 0))
+        conn.close()
 
-    thread = threading.Thread(target=accept, daemon=True)
-    thread.start()
-    try:
-        yield f"http://{HOST}:{listener.getsockname()[1]}", count
-    finally:
-        stop.set()
-        thread.join(timeout=5)
-        listener.close()
+    with _accepting(reset) as url:
+        yield url, count
 
 
 class Scripted:
