@@ -50,3 +50,14 @@ def test_every_warning_code_the_code_emits_is_documented():
 def test_every_setting_is_in_the_readme_table():
     for f in fields(Settings):
         assert f"`LINFER_{f.name.upper()}`" in README, f.name
+
+
+def test_every_environment_variable_read_is_in_the_readme_table():
+    # The service's settings and the server's (gunicorn_config.py) alike.
+    read = set()
+    for path in (ROOT / "service").rglob("*.py"):
+        read |= set(re.findall(r'environ(?:\.get)?\(\s*"(LINFER_[A-Z_]+)"', path.read_text()))
+        read |= set(re.findall(r'environ\[\s*"(LINFER_[A-Z_]+)"\s*\]', path.read_text()))
+    table = set(re.findall(r"^\| `(LINFER_[A-Z_]+)` \|", README, re.MULTILINE))
+    assert {"LINFER_BIND", "LINFER_WORKERS", "LINFER_TIMEOUT"} <= read
+    assert read <= table, sorted(read - table)
