@@ -81,23 +81,34 @@ def describe_alias(alias: Alias, names: tuple[str, ...]) -> str:
     return f"{name} = " + " ".join(parts)
 
 
-def _column_spread(design: Design) -> list[float] | None:
+def _column_spread(design: Design, column_squares: np.ndarray | None = None
+                   ) -> list[float] | None:
     """``sqrt(sum w (x_j - xbar_j)^2)`` per column, for VIF; NaN for the intercept.
 
     One pass (``sum w x^2 - (sum w x)^2 / sum w``) where that keeps at least 6 digits,
     which is plenty for a diagnostic; a second, centred pass for columns whose mean
-    dwarfs their spread; columns are scaled first when squares could overflow. The
-    per-column sums are numpy's; the k figures after them are Python floats (no
-    numpy call per step, and overflow is inf without a warning).
+    dwarfs their spread; columns are scaled first when squares could overflow (some
+    ``max_i |x_ij|`` outside (1e-150, 1e150)). The per-column sums are numpy's; the k
+    figures after them are Python floats (no numpy call per step, and overflow is inf
+    without a warning). ``column_squares``: ``np.einsum("ij,ij->j", x, x)`` (no weights),
+    when the caller has it.
     """
     if not design.intercept:
         return None
     x = design.matrix
     w = design.weights
     n, k = x.shape
-    # max |x| per column from the maxima and minima: no n x k temporary of |x|.
-    big = np.maximum(x.max(axis=0), -x.min(axis=0)).tolist() if n else [0.0] * k
-    extreme = not (1e-150 < min(big) and max(big) < 1e150)
+    squares = None
+    if w is None and column_squares is not None and n < 10**10 and all(
+            1e-290 < v < 1e290 for v in column_squares.tolist()):
+        # max_i x_ij^2 <= sum_i x_ij^2 <= n max_i x_ij^2 (to a few ulps): squares in
+        # (1e-290, 1e290) put every max |x_ij| in (1e-145 / sqrt(n), 1e145), inside the
+        # range that needs no scaling, so the maxima need not be formed.
+        big, extreme, squares = None, False, column_squares
+    else:
+        # max |x| per column from the maxima and minima: no n x k temporary of |x|.
+        big = np.maximum(x.max(axis=0), -x.min(axis=0)).tolist() if n else [0.0] * k
+        extreme = not (1e-150 < min(big) and max(big) < 1e150)
     if extreme:
         big = [b if b > 0 else 1.0 for b in big]
         xs = x / np.array(big)
@@ -106,9 +117,10 @@ def _column_spread(design: Design) -> list[float] | None:
     if w is None:
         total = float(n)
         sums = xs.sum(axis=0)
-        squares = np.einsum("ij,ij->j", xs, xs)
+        if squares is None:
+            squares = np.einsum("ij,ij->j", xs, xs)
     else:
-        total = float(np.sum(w))
+        total = float(w.sum())
         sums = w @ xs
         squares = np.einsum("i,ij,ij->j", w, xs, xs)
     sums, squares = sums.tolist(), squares.tolist()
@@ -258,6 +270,10 @@ def fit(design: Design, options: FitOptions) -> FitResult:
     if n < k:
         raise TooFewObservations(n, k)
     robust = options.covariance != "classical"
+    # sum_i x_ij^2 per column, once: the column scaling and the VIF spreads both start
+    # from it (without weights; with them the solver squares sqrt(W) X instead).
+    squares = np.einsum("ij,ij->j", design.matrix, design.matrix) \
+        if design.weights is None and n else None
     solution = solve(design.matrix, design.response, design.weights,
                      centered=design.intercept, drop_aliased=options.drop_aliased,
                      extended_max_work=options.extended_max_work,
@@ -265,9 +281,10 @@ def fit(design: Design, options: FitOptions) -> FitResult:
                      want_projection=robust or options.include_influence,
                      exact_columns=None if design.exact is None else (
                          lambda columns, exponents: design.exact.mp_columns(
-                             design.rows_used, columns, exponents)))
+                             design.rows_used, columns, exponents)),
+                     column_squares=squares)
     log_w = 0.0 if design.weights is None else math.fsum(np.log(design.weights).tolist())
-    return _complete(design, solution, options, n, _column_spread(design), log_w,
+    return _complete(design, solution, options, n, _column_spread(design, squares), log_w,
                      rows=True)
 
 

@@ -197,17 +197,22 @@ def extended_work(n: int, k: int) -> int:
     return n * (k + 2) * (k + 2)
 
 
-def _power_of_two_exponents(a: np.ndarray) -> np.ndarray:
+def _power_of_two_exponents(a: np.ndarray, squares: np.ndarray | None = None) -> np.ndarray:
     """Exponents ``e`` such that ``a[:, j] * 2**-e[j]`` has a 2-norm in [0.5, 1).
 
     As C ints: numpy's ``ldexp`` takes those directly (64-bit exponents go through a
-    cast that costs several times the scaling itself on a large design).
+    cast that costs several times the scaling itself on a large design). ``squares``:
+    ``sum_i a_ij^2`` per column, as ``np.einsum("ij,ij->j", a, a)`` gives it, when the
+    caller has it already.
     """
     if a.shape[0]:
-        squares = np.einsum("ij,ij->j", a, a)
-        if squares.size and 1e-290 < squares.min() and squares.max() < 1e290:
-            # No square overflowed and no column is zero or tiny: the norms are direct.
-            return np.frexp(np.sqrt(squares))[1].astype(np.intc)
+        if squares is None:
+            squares = np.einsum("ij,ij->j", a, a)
+        listed = squares.tolist()
+        if listed and all(1e-290 < v < 1e290 for v in listed):  # False for a NaN too
+            # No square overflowed and no column is zero or tiny: the norms are direct
+            # (math.sqrt and math.frexp: the same correctly rounded root and exponent).
+            return np.array([math.frexp(math.sqrt(v))[1] for v in listed], dtype=np.intc)
     big = np.maximum(np.max(a, axis=0), -np.min(a, axis=0)) if a.shape[0] else \
         np.zeros(a.shape[1])
     _, e_big = np.frexp(big)
@@ -268,6 +273,16 @@ def _norm(v: np.ndarray) -> float:
     """The 2-norm of a vector (BLAS ``dnrm2``: scaled, so neither squares nor their sum
     overflow or underflow)."""
     return float(blas.dnrm2(v))
+
+
+def _ldexp(v: float, e: int) -> float:
+    """``v 2^e`` as a Python float, by the C library's ``ldexp`` as ``numpy.ldexp`` is
+    (exact unless the result is subnormal, then correctly rounded); +-inf when it
+    overflows, as numpy gives, instead of ``math.ldexp``'s OverflowError."""
+    try:
+        return math.ldexp(v, e)
+    except OverflowError:
+        return math.copysign(math.inf, v)
 
 
 def _apply(qr: np.ndarray, tau: np.ndarray, v: np.ndarray, trans: str) -> np.ndarray:
@@ -445,26 +460,37 @@ def _double_path(a: _Equilibrated, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndar
     # Residuals in 80-bit arithmetic where that is cheap; large problems keep double
     # (BLAS) residuals unless refinement asks for extended ones.
     small = a.size <= REFINE_ALWAYS_CELLS
-    a_ld = a.long_double() if small else None
     rinv, info = lapack.dtrtri(r11)
     if info != 0:
         raise ArithmeticError(f"dtrtri failed with info={info}")
     root = np.empty((k, k))
     root[pivots] = rinv
     cov = root @ root.T
-    rw = ys_w - a.times(bs) if a_ld is None else _residual(ys_w, a_ld, bs)
-    err_b, err_se = _error_bounds(ys_w, bs, rw, cov, kappa, sigma_max)
+    if small:
+        a_ld = a.long_double()
+        y_ld = ys_w.astype(np.longdouble)
+        # A b in 80 bits, kept: the refinement's first residual needs the same product.
+        product = a_ld @ bs.astype(np.longdouble)
+        rw = (y_ld - product).astype(float)
+    else:
+        a_ld = y_ld = product = None
+        rw = ys_w - a.times(bs)
+    b_norm = _norm(bs)
+    y_norm = _norm(ys_w)
+    err_b, err_se = _error_bounds(bs, _norm(rw), b_norm, y_norm, cov, kappa, sigma_max)
     # Refine where it pays: always on small problems (cheap), and on large ones only
     # when the estimates have lost many of the digits double precision allows.
     worth = 8 * EPS if small else 1e-10
     if err_b > max(err_se, worth):
         if a_ld is None:
             a_ld = a.long_double()
-        bs, last_change, steps = _refine(a_ld, q, r11, pivots, ys_w, bs, rw)
+            y_ld = ys_w.astype(np.longdouble)
+        bs, last_change, steps = _refine(a_ld, q, r11, pivots, y_ld, bs, rw, product)
         if steps:
             # A converging refinement leaves an error below its last correction.
             err_b = min(err_b, max(10 * last_change, EPS))
-            rw = _residual(ys_w, a_ld, bs)
+            rw = _residual(y_ld, a_ld, bs)
+            b_norm = _norm(bs)
     residuals = rw if sw is None else rw / sw
     rss = _fsum_sq(rw)
     fitted = ys - residuals
@@ -475,9 +501,7 @@ def _double_path(a: _Equilibrated, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndar
     else:
         reg_ss = _fsum_sq(fitted, w)
         tot_ss = _fsum_sq(ys, w)
-    b_norm = _norm(bs)
     r_norm = math.sqrt(rss)
-    y_norm = _norm(ys_w)
     # The residual norm carries the rounding of y - X b and
     # the second-order effect of the error in b; relative to a tiny residual
     # (a near-perfect fit) both grow, and the digits estimate says so.
@@ -499,43 +523,52 @@ def _double_path(a: _Equilibrated, ys_w: np.ndarray, ys: np.ndarray, sw: np.ndar
                  digits=min(FULL_DIGITS, -math.log10(worst)))
 
 
-def _residual(y: np.ndarray, a_ld: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """``y - A b`` accumulated in 80-bit arithmetic (``a_ld``: A in long double) and
-    rounded once."""
-    return (y.astype(np.longdouble) - a_ld @ b.astype(np.longdouble)).astype(float)
+def _residual(y_ld: np.ndarray, a_ld: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``y - A b`` accumulated in 80-bit arithmetic (``y_ld`` and ``a_ld``: y and A in
+    long double) and rounded once."""
+    return (y_ld - a_ld @ b.astype(np.longdouble)).astype(float)
 
 
-def _error_bounds(ys_w: np.ndarray, bs: np.ndarray, r: np.ndarray, cov: np.ndarray,
-                  kappa: float, sigma_max: float) -> tuple[float, float]:
+def _error_bounds(bs: np.ndarray, r_norm: float, b_norm: float, y_norm: float,
+                  cov: np.ndarray, kappa: float, sigma_max: float) -> tuple[float, float]:
     """A priori relative error bounds of the estimates and of the standard errors.
 
     Component-wise first-order bound: a backward error dA of size eps |A| in A and dy
     of size eps |y| in y moves b by (A'A)^-1 (dA' r) - A^+ (dA b - dy) (Higham 2002,
     section 20.1), whose j-th entry is at most
     ``eps (|C_j.| |A| |r| + sqrt(C_jj) (|A| |b| + |y|))``, with C = (A'A)^-1; the
-    standard errors, from R^-1, carry about ``eps kappa``.
+    standard errors, from R^-1, carry about ``eps kappa``. ``r_norm``, ``b_norm`` and
+    ``y_norm`` are ``|r|``, ``|b|`` and ``|y|``; the k bounds are Python floats (IEEE
+    arithmetic in numpy's order, without a numpy call per step).
     """
     k = bs.shape[0]
-    r_norm = _norm(r)
-    b_norm = _norm(bs)
-    y_norm = _norm(ys_w)
-    root = np.sqrt(cov.diagonal())
-    row = np.sqrt(np.einsum("ij,ij->i", cov, cov))
-    spread = EPS * math.sqrt(k) * (row * sigma_max * r_norm
-                                   + root * (sigma_max * b_norm + y_norm))
-    return _relative_change(spread, bs), EPS * math.sqrt(k) * kappa
+    scale = EPS * math.sqrt(k)
+    along = sigma_max * b_norm + y_norm
+    rows = np.einsum("ij,ij->i", cov, cov).tolist()
+    # C_jj is a sum of squares (of the rows of R^-1): never negative, so math.sqrt holds.
+    spread = [scale * (math.sqrt(c2) * sigma_max * r_norm + math.sqrt(c) * along)
+              for c2, c in zip(rows, cov.diagonal().tolist())]
+    return _relative_change(spread, bs.tolist()), scale * kappa
 
 
-def _relative_change(dx: np.ndarray, x: np.ndarray) -> float:
-    """``max |dx_j| / |x_j|`` over the nonzero ``x_j`` (0 when there are none)."""
-    if x.all():
-        return float((np.abs(dx) / np.abs(x)).max())
-    moved = x != 0
-    return float(np.max(np.abs(dx[moved]) / np.abs(x[moved]))) if moved.any() else 0.0
+def _relative_change(dx: list[float], x: list[float]) -> float:
+    """``max |dx_j| / |x_j|`` over the nonzero ``x_j`` (0 when there are none, NaN when a
+    ratio is NaN, as numpy's max gives); Python floats: IEEE division, without a numpy
+    call per step on the few coefficients of a typical request."""
+    worst = 0.0
+    for d, v in zip(dx, x):
+        if v:
+            ratio = abs(d) / abs(v)
+            if ratio > worst:
+                worst = ratio
+            elif ratio != ratio:
+                return math.nan
+    return worst
 
 
 def _refine(a_ld: np.ndarray, q: _Orthogonal, r11: np.ndarray, pivots: np.ndarray,
-            y: np.ndarray, bs: np.ndarray, r0: np.ndarray,
+            y_ld: np.ndarray, bs: np.ndarray, r0: np.ndarray,
+            product: np.ndarray | None = None,
             steps: int = 4) -> tuple[np.ndarray, float, int]:
     """Iterative refinement of the least-squares solution on the augmented system.
 
@@ -543,25 +576,33 @@ def _refine(a_ld: np.ndarray, q: _Orthogonal, r11: np.ndarray, pivots: np.ndarra
     ``g = -A' r`` in 80-bit arithmetic and each correction from the Householder factor
     (Bjorck, Numerical Methods for Least Squares Problems, SIAM 1996, section 2.9.3):
     ``h = R^-T P'g``, ``z = (Q'f)_1 - h``, ``dx = P R^-1 z``, ``dr = f - Q_1 z``. It removes
-    the ``kappa^2 |r|`` term of the error for ``kappa eps < 1``. Returns the refined x,
-    the last correction's largest component-wise relative size, and the steps taken.
+    the ``kappa^2 |r|`` term of the error for ``kappa eps < 1``. ``y_ld`` is y in 80
+    bits; ``product``, when given, is ``A bs`` in 80 bits (the caller's, for the first
+    step). Returns the refined x, the last correction's largest component-wise relative
+    size, and the steps taken.
     """
     k = a_ld.shape[1]
     x = bs
     r = r0
-    y_ld = y.astype(np.longdouble)
     last = math.inf
     taken = 0
     for _ in range(steps):
-        f = (y_ld - r - a_ld @ x.astype(np.longdouble)).astype(float)
-        g = (-(a_ld.T @ r.astype(np.longdouble))).astype(float)
+        if product is None:
+            product = a_ld @ x.astype(np.longdouble)
+        r_ld = r.astype(np.longdouble)
+        f = (y_ld - r_ld - product).astype(float)
+        product = None
+        g = (-(a_ld.T @ r_ld)).astype(float)
         h = solve_triangular(r11, g[pivots], trans="T")
         z = q.leading(f) - h
         dx = np.empty(k)
         dx[pivots] = solve_triangular(r11, z)
         dr = f - q.span(z)
-        change = _relative_change(dx, x)
-        if not np.isfinite(dx).all() or change > 0.5 * last:
+        dx_list = dx.tolist()
+        if not all(map(math.isfinite, dx_list)):
+            break
+        change = _relative_change(dx_list, x.tolist())
+        if change > 0.5 * last:
             break
         x = x + dx
         r = r + dr
@@ -630,7 +671,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
           centered: bool, drop_aliased: bool = False, extended_max_work: int = 200_000,
           extended_below_digits: float = 13.5, want_projection: bool = False,
           exact_columns: Callable[[list[int], np.ndarray], list[list[mpmath.mpf]]] | None = None,
-          rank_rows: int | None = None, rank_tolerance: float | None = None) -> LeastSquares:
+          rank_rows: int | None = None, rank_tolerance: float | None = None,
+          column_squares: np.ndarray | None = None) -> LeastSquares:
     """Solve the weighted least-squares problem ``min sum_i w_i (y_i - x_i b)^2``.
 
     Parameters
@@ -664,6 +706,9 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     want_projection : bool
         Also return the :class:`Projection` (an n x rank array: ask only when robust
         covariances or per-row influence are wanted).
+    column_squares : (k,) array or None
+        ``np.einsum("ij,ij->j", x, x)`` when the caller has it (used without weights
+        only): the column scaling starts from it instead of forming it again.
 
     Returns
     -------
@@ -686,7 +731,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         sw = None
         xw = x
         shift = 0
-        e_norm = _power_of_two_exponents(xw)
+        e_norm = _power_of_two_exponents(xw, column_squares)
         e_y = _power_of_two_exponent(y)
     else:
         # sqrt(W) X and sqrt(W) y are formed with the root weights scaled by 2^-shift
@@ -699,8 +744,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         xw = np.multiply(x, sw_unit[:, None], out=np.empty(x.shape, order="F"))
         e_norm = _power_of_two_exponents(xw)
         e_y = _power_of_two_exponent(y * sw_unit) + shift
-    e_col = e_norm + shift  # A = sqrt(W) X 2^-e_col = xw 2^-e_norm
-    if np.any(y) and not SCALE_EXPONENTS[0] <= e_y <= SCALE_EXPONENTS[1]:
+    e_col = e_norm + shift if shift else e_norm  # A = sqrt(W) X 2^-e_col = xw 2^-e_norm
+    if y.any() and not SCALE_EXPONENTS[0] <= e_y <= SCALE_EXPONENTS[1]:
         raise ResponseScaleOutOfRange(e_y)
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
@@ -715,7 +760,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         a = np.ldexp(xw, -e_norm[None, :], out=np.empty(xw.shape, order="F"))
         held = _Equilibrated(xw, e_norm) if large else _Equilibrated(a)
     qr, pivots, tau = _householder(a, overwrite=large and sw is None)
-    diag = np.abs(qr.diagonal())
+    diag = [abs(v) for v in qr.diagonal().tolist()]
     rows = n if rank_rows is None else rank_rows
     if rank_tolerance is None:
         # Small enough for the extended path: only columns that are dependent up to
@@ -724,7 +769,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         small = extended_work(rows, k) <= extended_max_work
         rank_tolerance = SMALL_RANK_TOLERANCE if small else max(rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
-    rank = int(np.count_nonzero(diag > threshold)) if k and diag[0] > 0 else 0
+    rank = sum(1 for v in diag if v > threshold) if k and diag[0] > 0 else 0
     kept = list(range(k))
     aliases: tuple[Alias, ...] = ()
     if rank < k:
@@ -781,19 +826,24 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
                      _fsum_sq(ys, weights), 0.0,
                      _fsum_sq(ys, weights), 15.95, FULL_DIGITS)
 
-    kept_idx = np.array(kept, dtype=int)
-    e_kept = e_col[kept_idx]
+    full = len(kept) == k
+    if full:
+        e_kept = e_col
+    else:
+        kept_idx = np.array(kept, dtype=int)
+        e_kept = e_col[kept_idx]
+    down = -e_kept
     projection = None
     if want_projection:
         projection = _projection(qr, pivots, tau, len(kept), core.residuals, sw, e_kept, e_y,
                                  None if q is None else q.thin)
     with np.errstate(over="ignore"):
         kept_coefficients = np.ldexp(core.coefficients, e_y - e_kept)
-        kept_root_diagonal = np.ldexp(np.sqrt(core.covariance.diagonal()), -e_kept)
-        kept_covariance = np.ldexp(core.covariance, -(e_kept[:, None] + e_kept[None, :]))
-        kept_root = np.ldexp(core.root, -e_kept[:, None])
+        kept_root_diagonal = np.ldexp(np.sqrt(core.covariance.diagonal()), down)
+        kept_covariance = np.ldexp(core.covariance, down[:, None] + down[None, :])
+        kept_root = np.ldexp(core.root, down[:, None])
         residuals = np.ldexp(core.residuals, e_y)
-    if len(kept) == k:
+    if full:
         coefficients, root_diagonal = kept_coefficients, kept_root_diagonal
         covariance, covariance_root = kept_covariance, kept_root
     else:
@@ -805,16 +855,19 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         covariance[np.ix_(kept_idx, kept_idx)] = kept_covariance
         covariance_root = np.full((k, len(kept)), np.nan)
         covariance_root[kept_idx] = kept_root
-    estimable = np.zeros(k, dtype=bool)
-    estimable[kept_idx] = True
+    if full:
+        estimable = np.ones(k, dtype=bool)
+    else:
+        estimable = np.zeros(k, dtype=bool)
+        estimable[kept_idx] = True
     return LeastSquares(
         coefficients=coefficients, root_diagonal=root_diagonal,
         covariance_factor=covariance, covariance_root=covariance_root,
         fitted=y - residuals, residuals=residuals,
-        residual_norm=float(np.ldexp(math.sqrt(core.residual_ss), e_y)),
-        regression_norm=float(np.ldexp(math.sqrt(core.regression_ss), e_y)),
-        total_norm=float(np.ldexp(math.sqrt(core.total_ss), e_y)),
-        response_norm=float(np.ldexp(_norm(ys_w), e_y)),
+        residual_norm=_ldexp(math.sqrt(core.residual_ss), e_y),
+        regression_norm=_ldexp(math.sqrt(core.regression_ss), e_y),
+        total_norm=_ldexp(math.sqrt(core.total_ss), e_y),
+        response_norm=_ldexp(_norm(ys_w), e_y),
         rank=len(kept), estimable=estimable, aliases=aliases, singular_values=singular,
         right_singular_vectors=vt.T,
         rank_tolerance=rank_tolerance, condition_number=kappa, method=method,
