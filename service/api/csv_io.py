@@ -47,7 +47,7 @@ import pandas as pd
 from .arrays import MAX_POINTED, invalid
 from .problems import ApiProblem, FieldError, pointer
 from .query import NUMBER as _NUMBER
-from .query import QUERY_PARAMETERS, options_from_query
+from .query import QUERY_PARAMETERS, options_from_query, used_columns
 
 __all__ = ["table_body_from_csv", "coefficients_csv", "QUERY_PARAMETERS", "CSV_MEDIA_TYPE"]
 
@@ -307,33 +307,12 @@ def _careful(text: str, header: list[str], used: Sequence[int]) -> tuple[int, li
 
 def _used_columns(header: list[str], options: dict[str, Any]) -> list[int]:
     """Positions of the columns to send; 422 for names the header lacks."""
-    position = {name: j for j, name in enumerate(header)}
-    columns = ", ".join(header)
     hint = ""
     if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
         sep = next(s for s in ";\t|" if s in header[0])
         hint = (f"; the header has one column, {_quote(header[0])}: linfer reads "
                 f"comma-separated values, and this file seems to separate them by {sep!r}")
-    errors = []
-    if options["response_column"] not in position:
-        errors.append(FieldError("/response_column", f"{options['response_column']!r} names "
-                                 f"no column of the CSV header (columns: {columns}){hint}"))
-    for i, name in enumerate(options.get("predictor_columns", [])):
-        if name not in position:
-            errors.append(FieldError(pointer("predictor_columns", i), f"{name!r} names no "
-                                     f"column of the CSV header (columns: {columns})"))
-    weights = options.get("weights")
-    if weights is not None and weights not in position:
-        errors.append(FieldError("/weights", f"{weights!r} names no column of the CSV header "
-                                 f"(columns: {columns})"))
-    if errors:
-        raise invalid(errors)
-    if "predictor_columns" not in options:
-        return list(range(len(header)))
-    wanted = {options["response_column"], *options["predictor_columns"]}
-    if weights is not None:
-        wanted.add(weights)
-    return [j for j, name in enumerate(header) if name in wanted]
+    return used_columns(header, options, "the CSV header", hint)
 
 
 def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:

@@ -9,14 +9,17 @@ from __future__ import annotations
 import re
 from typing import Any, Mapping
 
+from ..settings import Settings
 from .arrays import invalid
 from .problems import FieldError, pointer
 
-__all__ = ["QUERY_PARAMETERS", "NUMBER", "options_from_query"]
+__all__ = ["QUERY_PARAMETERS", "NUMBER", "options_from_query", "current_settings",
+           "check_table_width", "used_columns"]
 
 # A decimal number with optional spaces or tabs around it.
 NUMBER = re.compile(r"[ \t]*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?[ \t]*")
 _QUOTED_MAX = 40
+_LISTED_MAX = 20  # column names listed in a message (a header may hold a million)
 
 
 def _quote(text: str) -> str:
@@ -109,3 +112,67 @@ def options_from_query(query: Mapping[str, Any]) -> dict[str, Any]:
     return options
 
 
+def current_settings() -> Settings:
+    """The app's settings inside a request, else the defaults (the readers' own tests)."""
+    from flask import current_app, has_app_context
+
+    if has_app_context():
+        found = current_app.config.get("LINFER_SETTINGS")
+        if isinstance(found, Settings):
+            return found
+    return Settings()
+
+
+def check_table_width(names: list[str], options: dict[str, Any]) -> None:
+    """Refuse a table whose every column would be a predictor, and too many of them.
+
+    Without ``predictor_columns`` every column but the response and the weights is a
+    predictor, so the design's width is known from the header or the schema alone:
+    a table wider than LINFER_MAX_COLUMNS is answered (as the fit would answer it)
+    before its rows are read, so that a header of a million names costs no parse.
+    """
+    if "predictor_columns" in options:
+        return
+    weights = options.get("weights")
+    k = len(names) - 1 - int(weights in names) + int(options.get("intercept", True))
+    limit = current_settings().max_columns
+    if k > limit:
+        raise invalid([FieldError("/table", f"has {k} design columns, more than the limit "
+                                  f"of {limit} (LINFER_MAX_COLUMNS)")])
+
+
+def _listed(names: list[str]) -> str:
+    if len(names) <= _LISTED_MAX:
+        return ", ".join(names)
+    return ", ".join(names[:_LISTED_MAX]) + f", ... ({len(names)} columns)"
+
+
+def used_columns(names: list[str], options: dict[str, Any], source: str,
+                 hint: str = "") -> list[int]:
+    """Positions of the table's columns that the fit uses; 422 for names it lacks.
+
+    ``source`` names the table in the messages ("the CSV header"); ``hint`` is added
+    to the message about the response column.
+    """
+    position = {name: j for j, name in enumerate(names)}
+    columns = _listed(names)
+    errors = []
+    if options["response_column"] not in position:
+        errors.append(FieldError("/response_column", f"{options['response_column']!r} names "
+                                 f"no column of {source} (columns: {columns}){hint}"))
+    for i, name in enumerate(options.get("predictor_columns", [])):
+        if name not in position:
+            errors.append(FieldError(pointer("predictor_columns", i), f"{name!r} names no "
+                                     f"column of {source} (columns: {columns})"))
+    weights = options.get("weights")
+    if weights is not None and weights not in position:
+        errors.append(FieldError("/weights", f"{weights!r} names no column of {source} "
+                                 f"(columns: {columns})"))
+    if errors:
+        raise invalid(errors)
+    if "predictor_columns" not in options:
+        return list(range(len(names)))
+    wanted = {options["response_column"], *options["predictor_columns"]}
+    if weights is not None:
+        wanted.add(weights)
+    return [j for j, name in enumerate(names) if name in wanted]
