@@ -9,7 +9,7 @@ from typing import Mapping
 
 from flask import Flask
 
-from . import observability, security
+from . import observability, security, time_limit
 from . import settings as settings_module
 from .api import problems, routes
 from .settings import Settings
@@ -32,6 +32,8 @@ def create_app(settings: Settings | Mapping[str, object] | None = None) -> Flask
     # before the request and one after it for the three.
     observability.init_app(app)
     security.init_app(app)
+    # After the hooks above: its after-request hook then runs first (disarming the timer).
+    time_limit.init_app(app)
     problems.init_app(app)
     routes.init_app(app)
     return app

@@ -33,8 +33,10 @@ def build_parser() -> argparse.ArgumentParser:
                        "or LINFER_BIND)")
     serve.add_argument("--workers", type=int, help="worker processes (default: one per core, "
                        "or LINFER_WORKERS)")
-    serve.add_argument("--timeout", type=int, help="seconds a request may take before its "
-                       "worker is restarted (default 60, or LINFER_TIMEOUT)")
+    serve.add_argument("--timeout", type=int, help="seconds before a worker stuck on one "
+                       "request is restarted (default 60, or LINFER_TIMEOUT); requests are "
+                       "stopped with a problem answer at half of it, or at "
+                       "LINFER_MAX_REQUEST_SECONDS")
     serve.set_defaults(handler=_serve)
     return parser
 

@@ -40,6 +40,14 @@ def pre_fork(server, worker):
     gc.freeze()
 
 
+def post_fork(server, worker):
+    # Each worker's requests are stopped at LINFER_MAX_REQUEST_SECONDS with a problem
+    # answer (a timer on the worker's main thread).
+    from service import time_limit
+
+    time_limit.install()
+
+
 def child_exit(server, worker):
     from prometheus_client import multiprocess
 
@@ -50,6 +58,18 @@ bind = os.environ.get("LINFER_BIND", "127.0.0.1:8000")
 workers = int(os.environ.get("LINFER_WORKERS", "0")) or multiprocessing.cpu_count()
 worker_class = "sync"
 timeout = int(os.environ.get("LINFER_TIMEOUT", "60"))
+# The app stops a request at LINFER_MAX_REQUEST_SECONDS with a problem answer
+# (service/time_limit.py); the worker timeout is the hard stop behind it, for a worker
+# stuck in one long computation, so the first must be the shorter.
+if not os.environ.get("LINFER_MAX_REQUEST_SECONDS"):
+    os.environ["LINFER_MAX_REQUEST_SECONDS"] = str(timeout / 2)
+try:
+    _request_seconds = float(os.environ["LINFER_MAX_REQUEST_SECONDS"])
+except ValueError:
+    _request_seconds = None  # the app's settings refuse it with the reason
+if _request_seconds is not None and not _request_seconds < timeout:
+    raise SystemExit(f"LINFER_MAX_REQUEST_SECONDS={_request_seconds:g} must be below the "
+                     f"worker timeout LINFER_TIMEOUT={timeout}")
 graceful_timeout = 20
 keepalive = 5
 preload_app = True

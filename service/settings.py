@@ -45,6 +45,12 @@ class Settings:
     extended_below_digits
         The double-precision answer is recomputed in extended precision when
         its estimated correct digits fall below this (LINFER_EXTENDED_BELOW_DIGITS).
+    max_request_seconds
+        Longest time one request may take, body upload included
+        (LINFER_MAX_REQUEST_SECONDS): past it the request is stopped and answered
+        with a 408 (body still arriving) or 422 (computing) problem. Under gunicorn it
+        must be below the worker timeout (LINFER_TIMEOUT), which ``linfer serve``
+        checks; unset there, it is half of LINFER_TIMEOUT.
     api_tokens
         Comma-separated bearer tokens (LINFER_API_TOKENS). When set, every /v1
         endpoint needs ``Authorization: Bearer <token>``; empty: no authentication.
@@ -70,6 +76,7 @@ class Settings:
     max_hypotheses: int = 50
     extended_max_work: int = 200_000
     extended_below_digits: float = 13.5
+    max_request_seconds: float = 30.0
     api_tokens: str = ""
     cors_origins: str = ""
 

@@ -15,6 +15,7 @@ from werkzeug.sansio.utils import get_content_length
 
 from ..observability import record_shape
 from ..settings import Settings
+from ..time_limit import body_received
 from ..stats.design import INTERCEPT, Design
 from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit, fit_summary
 from ..stats.hypotheses import HypothesisError, test_hypotheses
@@ -90,6 +91,7 @@ def _read_body() -> bytes:
         if len(raw) > limit:
             raise ApiProblem(413, "Content Too Large", body_limit_detail(),
                              "content_too_large")
+        body_received()
         return raw
     # What request.get_data(cache=False) reads, without its stream wrappers: the
     # announced length, and a body cut short is a client that went away (400), unless
@@ -97,6 +99,7 @@ def _read_body() -> bytes:
     raw = environ["wsgi.input"].read(length)
     if len(raw) < length and "wsgi.input_terminated" not in environ:
         raise ClientDisconnected()
+    body_received()
     return raw
 
 
