@@ -7,9 +7,13 @@ with a header row, and the request's query parameters, into a /v1/fit body in th
 
 Reading rules (each decided, each tested):
 
-- The body is UTF-8 (a leading byte order mark, as Excel writes it, is dropped).
-  Fields are separated by commas and may be quoted with ``"`` (RFC 4180). The first
-  non-blank record is the header; blank lines are skipped.
+- The body is UTF-8 (a leading byte order mark, as Excel writes it, is dropped);
+  UTF-16 (a byte order mark ``FF FE`` or ``FE FF``, or a NUL byte in the header) is
+  answered as such. Fields are separated by commas and may be quoted with ``"``
+  (RFC 4180, strictly: a closing quote is followed by a comma or the end of the
+  line, and a quote that is never closed is an error, not the rest of the file
+  read as one field). The first non-blank record is the header; blank lines are
+  skipped.
 - Header names are stripped of surrounding spaces and tabs; each must be non-empty
   and unique.
 - Every row has as many fields as the header.
@@ -26,6 +30,10 @@ Files whose data are plain numbers are read by pandas' C parser in one pass;
 anything else (missing cells, quotes, text in unused columns, an error to point at)
 is read record by record with :mod:`csv`, which knows the line of each record. Both
 paths give the same answer for every input.
+
+Without ``predictor_columns`` every column is a predictor: a header with more than
+LINFER_MAX_COLUMNS of them is answered (as the fit would answer it) before the rows
+are read. With ``predictor_columns``, pandas converts only the columns sent.
 
 Status codes: 400 (``malformed_csv``) when the bytes cannot be read as a table
 (empty, not UTF-8, broken quoting, rows of the wrong length); 422
@@ -47,7 +55,7 @@ import pandas as pd
 from .arrays import MAX_POINTED, invalid
 from .problems import ApiProblem, FieldError, pointer
 from .query import NUMBER as _NUMBER
-from .query import QUERY_PARAMETERS, options_from_query, used_columns
+from .query import QUERY_PARAMETERS, check_table_width, options_from_query, used_columns
 
 __all__ = ["table_body_from_csv", "coefficients_csv", "QUERY_PARAMETERS", "CSV_MEDIA_TYPE"]
 
@@ -65,6 +73,11 @@ _SPACED_EXPONENT = re.compile(
 # The data are checked for other bytes this many at a time (a copy of this size, not
 # of the body).
 _CHUNK = 1 << 20
+# A quoted field of plain data: a quote at the start of a field (of the line, or after
+# a comma), no quote, comma or line end inside, a quote at the end of the field. When
+# every quote of the data belongs to one, pandas and csv read the same cells.
+_QUOTED_FIELD = re.compile(rb'"(?<![^,\r\n]")[^",\r\n]*"(?![^,\r\n])')
+_UTF16_BOMS = (b"\xff\xfe", b"\xfe\xff")
 _MISSING_MARKERS = {"na", "n/a", "#n/a", "nan", "null", "none", "-", ".", "?"}
 _QUOTED_MAX = 40
 
@@ -81,6 +94,10 @@ def _quote(text: str) -> str:
 
 def _decode(raw: bytes) -> str:
     """The text of the body without a byte order mark; 400 when not UTF-8 or empty."""
+    if raw.startswith(_UTF16_BOMS):
+        raise _malformed(f"the body is UTF-16 text (it starts with the byte order mark "
+                         f"0x{raw[0]:02x} 0x{raw[1]:02x}), not UTF-8; save the file as CSV "
+                         "UTF-8")
     skipped = len(_BOM) if raw.startswith(_BOM) else 0
     body = raw[skipped:]
     try:
@@ -103,7 +120,9 @@ def _blank(record: list[str]) -> bool:
 
 def _records(text: str) -> Iterator[tuple[int, list[str]]]:
     """(first line, fields) of every non-blank record; 400 on broken quoting."""
-    reader = csv.reader(io.StringIO(text, newline=""))
+    # strict: a quote never closed is an error (not the rest of the file as one
+    # field), and so is text after a closing quote ('"1"2' is not 12).
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
     line = 0
     while True:
         start = line + 1
@@ -112,6 +131,14 @@ def _records(text: str) -> Iterator[tuple[int, list[str]]]:
         except StopIteration:
             return
         except csv.Error as err:
+            if "unexpected end of data" in str(err):
+                raise _malformed(f"the CSV cannot be read: a quote opened in the record that "
+                                 f"starts at line {start} is never closed") from None
+            if "expected after" in str(err):
+                raise _malformed(f"the CSV cannot be read at line {reader.line_num}: a "
+                                 "closing quote must be followed by a comma or the end of "
+                                 "the line (write a quote inside a quoted field as \"\")") \
+                    from None
             raise _malformed(f"the CSV cannot be read at line {reader.line_num}: {err}") from None
         line = reader.line_num
         if not _blank(record):
@@ -125,6 +152,9 @@ def _header(text: str) -> tuple[list[str], int]:
         raise _malformed("the CSV has no header row")
     line, names = first
     names = [n.strip(" \t") for n in names]
+    if any("\x00" in n for n in names):
+        raise _malformed(f"the header (CSV line {line}) holds a NUL byte: the file is "
+                         "perhaps UTF-16 text; save it as CSV UTF-8")
     errors = []
     seen: dict[str, int] = {}
     for j, name in enumerate(names):
@@ -174,31 +204,58 @@ def _plain_header(raw: bytes) -> tuple[str, int] | None:
     if (raw.find(b" ", end + 1) >= 0 or raw.find(b"\t", end + 1) >= 0) \
             and _SPACED_EXPONENT.search(raw, end + 1):
         return None
+    if raw.find(b'"', end + 1) >= 0 and not _plain_quotes(raw, end + 1):
+        return None
     return head, end + 1
 
 
-def _fast(raw: bytes, start: int, k: int) -> list[np.ndarray] | None:
-    """All k columns as floats by pandas' C parser, or None when the careful path must decide.
+def _plain_quotes(raw: bytes, start: int) -> bool:
+    """Whether every quote from ``start`` on opens or closes a whole quoted field.
+
+    Such a field holds no line end, so the data are looked at a piece of about
+    _CHUNK bytes ending at a line end at a time (a copy of that size, not of the body).
+    """
+    pos, size = start, len(raw)
+    while pos < size:
+        end = raw.find(b"\n", pos + _CHUNK)
+        end = size if end < 0 else end + 1
+        quotes = raw.count(b'"', pos, end)
+        if quotes:
+            if quotes % 2:
+                return False
+            _, fields = _QUOTED_FIELD.subn(b"", raw[pos:end])
+            if 2 * fields != quotes:
+                return False
+        pos = end
+    return True
+
+
+def _fast(raw: bytes, start: int, k: int, used: Sequence[int]) -> list[np.ndarray] | None:
+    """The used columns as floats by pandas' C parser, or None when the careful path must decide.
 
     Called only when :func:`_plain_header` has found the header line and the data
     plain: then pandas accepts exactly what the careful path accepts (the tests
     check this), and NaN only marks an empty cell or a short row, which a
     structural pass tells apart. The columns are pandas' own arrays, not copied.
     pandas reads from ``start``, the first byte after the header line (``skiprows=1``
-    would cost it a test of every row: about a fifth of the parse).
+    would cost it a test of every row: about a fifth of the parse). When fewer than
+    k columns are used, pandas converts only those (``usecols``; a header of many
+    columns costs it no per-column work) and no longer sees rows of the wrong
+    length: the caller then checks the structure itself.
     """
     stream = io.BytesIO(raw)
     stream.seek(start)
+    subset = len(used) < k
     try:
         frame = pd.read_csv(stream, header=None, engine="c",
                             dtype=float, keep_default_na=False, na_values=[""],
-                            skip_blank_lines=True)
+                            skip_blank_lines=True, usecols=list(used) if subset else None)
     except (ValueError, pd.errors.ParserError, pd.errors.EmptyDataError):
         return None
-    if frame.shape[1] != k:
+    if frame.shape[1] != len(used):
         return None
     columns = []
-    for j in range(k):
+    for j in range(len(used)):
         column = frame.iloc[:, j].to_numpy(dtype=np.float64)
         if np.isinf(column).any():
             return None
@@ -358,18 +415,21 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
         # The careful path's checks of the body before the header would all pass.
         header, header_line = _header(plain[0])
         used = _used_columns(header, options)
-        values = _fast(raw, plain[1], len(header))
-        if values is not None and any(np.isnan(c).any() for c in values):
+        check_table_width(header, options)
+        values = _fast(raw, plain[1], len(header), used)
+        if values is not None and (len(used) < len(header)
+                                   or any(np.isnan(c).any() for c in values)):
             k, n, start = len(header), values[0].shape[0], plain[1]
             if not (_plain_structure_agrees(raw, start, k, n) if raw.find(b'"', start) < 0
                     else _structure_agrees(_decode(raw), k, n)):
                 values = None
     if values is not None:
-        n, columns = values[0].shape[0], [values[j] for j in used]
+        n, columns = values[0].shape[0], values
     else:
         text = _decode(raw)
         header, header_line = _header(text)
         used = _used_columns(header, options)
+        check_table_width(header, options)
         n, columns = _careful(text, header, used)
     if n == 0:
         raise invalid([FieldError("/table", f"the CSV has a header row (line {header_line}) "
