@@ -7,6 +7,7 @@ values). Every failure is a 422 problem whose pointers name the offending values
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 from typing import Any
 
@@ -303,15 +304,33 @@ def _hypotheses(data: dict[str, Any], settings: Settings) -> tuple[Hypothesis, .
 
 
 def fit_options(data: dict[str, Any], settings: Settings) -> FitOptions:
-    return FitOptions(
-        levels=_check_levels(data["levels"], settings),
-        drop_aliased=data.get("rank_deficiency") == "drop_aliased",
-        extended_max_work=settings.extended_max_work,
-        extended_below_digits=settings.extended_below_digits,
-        covariance=data.get("covariance", "classical"),
-        simultaneous=data.get("simultaneous"),
-        hypotheses=_hypotheses(data, settings),
-        include_influence="influence" in data.get("include", ()))
+    """The fit options of a loaded envelope, its levels and hypotheses checked."""
+    levels = _check_levels(data["levels"], settings)
+    hypotheses = _hypotheses(data, settings)
+    drop_aliased = data.get("rank_deficiency") == "drop_aliased"
+    covariance = data.get("covariance", "classical")
+    influence = "influence" in data.get("include", ())
+    if hypotheses:
+        return FitOptions(levels=levels, drop_aliased=drop_aliased,
+                          extended_max_work=settings.extended_max_work,
+                          extended_below_digits=settings.extended_below_digits,
+                          covariance=covariance, simultaneous=data.get("simultaneous"),
+                          hypotheses=hypotheses, include_influence=influence)
+    return _plain_options(levels, drop_aliased, settings.extended_max_work,
+                          settings.extended_below_digits, covariance,
+                          data.get("simultaneous"), influence)
+
+
+@functools.lru_cache(maxsize=64)
+def _plain_options(levels: tuple[float, ...], drop_aliased: bool, extended_max_work: int,
+                   extended_below_digits: float, covariance: str, simultaneous: str | None,
+                   include_influence: bool) -> FitOptions:
+    """The options without hypotheses, built once per combination (they are immutable,
+    and most requests ask for one of a few)."""
+    return FitOptions(levels=levels, drop_aliased=drop_aliased,
+                      extended_max_work=extended_max_work,
+                      extended_below_digits=extended_below_digits, covariance=covariance,
+                      simultaneous=simultaneous, include_influence=include_influence)
 
 
 def load_request(schema: Schema, body: Any) -> dict[str, Any]:

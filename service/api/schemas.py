@@ -344,23 +344,28 @@ def load_envelope(schema: Schema, body: dict[str, Any]) -> dict[str, Any]:
     afterwards: the same data and the same errors (the schema-level validators read no
     defaulted field), at a fraction of the work.
     """
-    narrow, defaults = _narrowed(schema, frozenset(body.keys() & schema.load_fields.keys()))
+    narrow, values, factories = _narrowed(schema, tuple(body))
     data = narrow.load(body)
-    for name, default in defaults:
-        data[name] = default() if callable(default) else default
+    data.update(values)
+    for name, factory in factories:
+        data[name] = factory()
     return data
 
 
 @functools.lru_cache(maxsize=256)
-def _narrowed(schema: Schema, present: frozenset[str]
-              ) -> tuple[Schema, tuple[tuple[str, Any], ...]]:
-    """The copy of ``schema`` for bodies holding the fields ``present``, and the
-    (name, default) pairs of the absent fields that have a default."""
+def _narrowed(schema: Schema, keys: tuple[str, ...]
+              ) -> tuple[Schema, dict[str, Any], tuple[tuple[str, Any], ...]]:
+    """For bodies with the members ``keys`` (in their order): the copy of ``schema``
+    that walks the fields present and the required ones, the defaults of the absent
+    fields that are plain values, and (name, factory) for those made afresh per load."""
+    present = set(keys)
     walked = tuple(name for name, f in schema.load_fields.items()
                    if name in present or f.required)
-    defaults = tuple((name, f.load_default) for name, f in schema.load_fields.items()
-                     if name not in walked and f.load_default is not missing)
-    return type(schema)(only=walked), defaults
+    absent = [(name, f.load_default) for name, f in schema.load_fields.items()
+              if name not in walked and f.load_default is not missing]
+    values = {name: default for name, default in absent if not callable(default)}
+    factories = tuple((name, default) for name, default in absent if callable(default))
+    return type(schema)(only=walked), values, factories
 
 
 def flatten_errors(messages: Any, prefix: tuple[str | int, ...] = ()) -> list[FieldError]:
