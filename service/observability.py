@@ -87,7 +87,8 @@ def _now() -> str:
 def _finish(response: Response) -> Response:
     ctx = g._get_current_object()
     req = request._get_current_object()
-    elapsed = time.perf_counter() - getattr(ctx, "started", time.perf_counter())
+    now = time.perf_counter()
+    elapsed = now - getattr(ctx, "started", now)
     rule = req.url_rule
     endpoint = rule.rule if rule is not None else "unmatched"
     status = response.status_code
@@ -100,10 +101,11 @@ def _finish(response: Response) -> Response:
     if latency is None:
         latency = _latency_histograms[endpoint] = _LATENCY.labels(endpoint=endpoint)
     latency.observe(elapsed)
+    request_id = getattr(ctx, "request_id", None)
     if access_log.isEnabledFor(logging.INFO):
         line = orjson.dumps({
             "time": _now(),
-            "request_id": getattr(ctx, "request_id", None),
+            "request_id": request_id,
             "method": req.method,
             "endpoint": endpoint,
             "status": status,
@@ -116,7 +118,7 @@ def _finish(response: Response) -> Response:
             handler.write_line(line)
         else:
             access_log.handle(_record(line))
-    response.headers["X-Request-ID"] = getattr(ctx, "request_id", None) or _new_id()
+    response.headers["X-Request-ID"] = request_id or _new_id()
     return response
 
 
@@ -135,8 +137,11 @@ class _LineHandler(logging.StreamHandler):
         message), without making the record."""
         with self.lock:
             try:
-                self.stream.write(line + self.terminator)
-                self.flush()
+                stream = self.stream
+                stream.write(line + self.terminator)
+                # What self.flush() does, already under the lock it would take again.
+                if stream and hasattr(stream, "flush"):
+                    stream.flush()
             except RecursionError:
                 raise
             except Exception:
