@@ -17,11 +17,11 @@ columns with proportion above 0.5 on it form a collinear set. The design is
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from .lstsq import Alias, LeastSquares
+from .records import record
 
 __all__ = ["Conditioning", "assess", "CONDITION_INDEX_LIMIT", "PROPORTION_LIMIT"]
 
@@ -29,7 +29,7 @@ CONDITION_INDEX_LIMIT = 30.0
 PROPORTION_LIMIT = 0.5
 
 
-@dataclass(frozen=True)
+@record
 class CollinearSet:
     """Columns whose coefficient variances one near-dependency inflates."""
 
@@ -38,7 +38,7 @@ class CollinearSet:
     proportions: tuple[float, ...]
 
 
-@dataclass(frozen=True)
+@record
 class Conditioning:
     """The verdict on the design.
 

@@ -22,18 +22,18 @@ and HC3 are undefined there and come back as NaN.
 from __future__ import annotations
 
 import contextlib
-from dataclasses import dataclass
 
 import numpy as np
 
 from .lstsq import LeastSquares
+from .records import record
 
 __all__ = ["KINDS", "CovarianceEstimate", "estimate_covariance"]
 
 KINDS = ("classical", "hc0", "hc1", "hc2", "hc3")
 
 
-@dataclass(frozen=True)
+@record
 class CovarianceEstimate:
     """``matrix`` (k x k, NaN for aliased columns) and ``standard_errors`` (overflow-safe).
 

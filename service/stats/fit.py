@@ -15,6 +15,7 @@ from .inference import FTest, Inference, infer
 from .lstsq import Alias, LeastSquares, solve
 from .model import ModelSummary
 from .notices import Notice
+from .records import record
 from .residuals import Influence, ResidualChecks, check_residuals, influence
 from .summaries import Summary, solve_summary
 
@@ -45,7 +46,7 @@ class FitOptions:
     include_influence: bool = False
 
 
-@dataclass(frozen=True)
+@record
 class Numerics:
     """How the answer was computed and how many of its digits it vouches for."""
 
@@ -54,7 +55,7 @@ class Numerics:
     estimated_correct_digits: float
 
 
-@dataclass(frozen=True)
+@record
 class FitResult:
     design: Design
     solution: LeastSquares

@@ -19,6 +19,7 @@ from scipy import linalg
 
 from .distributions import f_upper_p
 from .model import ModelSummary
+from .records import record
 
 __all__ = ["Restriction", "Hypothesis", "HypothesisResult", "HypothesisError", "test_hypotheses"]
 
@@ -39,7 +40,7 @@ class Hypothesis:
     restrictions: tuple[Restriction, ...]
 
 
-@dataclass(frozen=True)
+@record
 class HypothesisResult:
     label: str | None
     statistic: float

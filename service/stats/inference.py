@@ -10,13 +10,13 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from .covariance import CovarianceEstimate, estimate_covariance
 from .distributions import f_quantile, f_upper_p, t_quantile, t_two_sided_p_float
 from .lstsq import EPS, LeastSquares
+from .records import record
 
 __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "infer",
            "is_perfect_fit", "SIMULTANEOUS", "simultaneous_multipliers"]
@@ -24,7 +24,7 @@ __all__ = ["Interval", "Coefficient", "FitStatistics", "FTest", "Inference", "in
 SIMULTANEOUS = ("bonferroni", "scheffe")
 
 
-@dataclass(frozen=True)
+@record
 class Interval:
     """A two-sided confidence interval at ``level``."""
 
@@ -33,7 +33,7 @@ class Interval:
     upper: float
 
 
-@dataclass(frozen=True)
+@record
 class Coefficient:
     """One row of the coefficient table.
 
@@ -53,7 +53,7 @@ class Coefficient:
     vif: float
 
 
-@dataclass(frozen=True)
+@record
 class FitStatistics:
     """Goodness of fit.
 
@@ -79,7 +79,7 @@ class FitStatistics:
     centered: bool
 
 
-@dataclass(frozen=True)
+@record
 class FTest:
     """``statistic ~ F(numerator_df, denominator_df)`` under the null; ``p_value = P(F >= statistic)``."""
 
@@ -89,7 +89,7 @@ class FTest:
     p_value: float
 
 
-@dataclass(frozen=True)
+@record
 class Inference:
     n_observations: int
     n_parameters: int

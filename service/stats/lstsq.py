@@ -30,12 +30,13 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass
 from typing import Callable
 
 import mpmath
 import numpy as np
 from scipy.linalg import blas, lapack
+
+from .records import record
 
 __all__ = ["Alias", "LeastSquares", "Projection", "RankDeficient", "ResponseScaleOutOfRange",
            "extended_work", "solve"]
@@ -47,7 +48,7 @@ SMALL_RANK_TOLERANCE = 4 * EPS
 REFINE_ALWAYS_CELLS = 100_000
 
 
-@dataclass(frozen=True)
+@record
 class Alias:
     """A design column that is (numerically) a linear combination of kept columns.
 
@@ -88,7 +89,7 @@ class RankDeficient(Exception):
         self.n_columns = n_columns
 
 
-@dataclass(frozen=True)
+@record
 class Projection:
     """What robust covariances and influence measures need, in exactly scaled units.
 
@@ -105,7 +106,7 @@ class Projection:
     response_exponent: int
 
 
-@dataclass(frozen=True)
+@record
 class LeastSquares:
     """The weighted least-squares solution and what is needed to judge it.
 
@@ -403,7 +404,7 @@ def _centre(y: np.ndarray, w: np.ndarray | None) -> float:
     return _sum(w * y) / _sum(w)
 
 
-@dataclass(frozen=True)
+@record
 class _Core:
     """The answer in scaled units, from either path."""
 

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
+
+from .records import record
 
 
 __all__ = ["ModelSummary", "MODEL_VERSION"]
@@ -12,7 +12,7 @@ __all__ = ["ModelSummary", "MODEL_VERSION"]
 MODEL_VERSION = 1
 
 
-@dataclass(frozen=True)
+@record
 class ModelSummary:
     """A fitted model, as /v1/fit returns it with ``return_model``.
 

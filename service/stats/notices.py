@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from .records import record
 
 __all__ = ["Notice"]
 
 
-@dataclass(frozen=True)
+@record
 class Notice:
     """A warning. ``column`` names the design column it concerns, if any."""
 

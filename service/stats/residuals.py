@@ -22,12 +22,12 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import cython_special
 
 from .lstsq import LeastSquares
+from .records import record
 
 __all__ = ["ResidualChecks", "Influence", "check_residuals", "influence"]
 
@@ -35,7 +35,7 @@ _PROBS = (0.0, 0.25, 0.5, 0.75, 1.0)
 _chdtrc = cython_special.chdtrc  # chi-square upper tail, scipy.special.chdtrc on floats
 
 
-@dataclass(frozen=True)
+@record
 class ResidualChecks:
     quantiles: tuple[tuple[float, float], ...]
     skewness: float
@@ -48,7 +48,7 @@ class ResidualChecks:
     breusch_pagan_p_value: float
 
 
-@dataclass(frozen=True)
+@record
 class Influence:
     leverage: np.ndarray
     studentized_residual: np.ndarray
