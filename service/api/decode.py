@@ -97,10 +97,21 @@ def _reject_missing(arrays: list[tuple[np.ndarray, tuple[str | int, ...], bool]]
         raise invalid(errors, f"{total} value(s) are missing (null) and missing is 'reject'")
 
 
-def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool) -> list[str]:
+@functools.lru_cache(maxsize=64)
+def _default_columns(k: int) -> tuple[tuple[str, ...], dict[str, str]]:
+    """The names x1..xk of ``k`` unnamed design_matrix columns, and their pointers (the
+    cells of row 0): the same for every request of that width."""
+    names = tuple(f"x{j + 1}" for j in range(k))
+    return names, {name: f"/design_matrix/0/{j}" for j, name in enumerate(names)}
+
+
+def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool
+                      ) -> tuple[list[str] | tuple[str, ...], dict[str, str]]:
+    """The design_matrix's column names and a pointer per name (a new dict)."""
     names = data.get("column_names")
     if names is None:
-        return [f"x{j + 1}" for j in range(k)]
+        names, where = _default_columns(k)
+        return names, dict(where)
     if len(names) != k:
         raise invalid([FieldError("/column_names",
                                   f"has {len(names)} names for {k} design_matrix columns")])
@@ -109,7 +120,8 @@ def _names_for_matrix(data: dict[str, Any], k: int, intercept: bool) -> list[str
         raise invalid([FieldError(pointer("column_names", seen[INTERCEPT]),
                                   "'intercept' names the column of ones the service adds; "
                                   "rename the column or set intercept to false")])
-    return list(names)
+    # pointer("column_names", j): nothing to escape.
+    return list(names), {name: f"/column_names/{j}" for j, name in enumerate(names)}
 
 
 def _matrix_layout(data: dict[str, Any], settings: Settings):
@@ -120,7 +132,7 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
         raise invalid([FieldError("/response", f"response has {y.shape[0]} values, "
                                   f"design_matrix has {n} rows")])
     _check_limits(n, m + int(data["intercept"]), "/design_matrix", settings)
-    names = _names_for_matrix(data, m, data["intercept"])
+    names, where = _names_for_matrix(data, m, data["intercept"])
     w = None
     if "weights" in data:
         w = as_vector(data["weights"], ("weights",))
@@ -130,9 +142,6 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
         if w is not None:
             arrays.append((w, ("weights",), False))
         _reject_missing(arrays)
-    # pointer("column_names", j) or pointer("design_matrix", 0, j): nothing to escape.
-    prefix = "/column_names/" if "column_names" in data else "/design_matrix/0/"
-    where = {name: f"{prefix}{j}" for j, name in enumerate(names)}
     return x, y, w, names, where, None, ()
 
 
