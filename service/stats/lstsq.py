@@ -323,11 +323,12 @@ class _Orthogonal:
         self.tau = tau
         self.k = k
         self.thin = _thin_q(qr, tau, k) if explicit else None
+        self.thin_t = None if self.thin is None else self.thin.T
 
     def leading(self, v: np.ndarray) -> np.ndarray:
         """``(Q' v)[:k] = Q_1' v``."""
-        if self.thin is not None:
-            return self.thin.T @ v
+        if self.thin_t is not None:
+            return self.thin_t @ v
         return _apply_qt(self.qr, self.tau, v)[:self.k]
 
     def span(self, z: np.ndarray) -> np.ndarray:
@@ -585,6 +586,7 @@ def _refine(a_ld: np.ndarray, q: _Orthogonal, r11: np.ndarray, pivots: np.ndarra
     k = a_ld.shape[1]
     x = bs
     r = r0
+    a_t = a_ld.T
     last = math.inf
     taken = 0
     for _ in range(steps):
@@ -593,7 +595,7 @@ def _refine(a_ld: np.ndarray, q: _Orthogonal, r11: np.ndarray, pivots: np.ndarra
         r_ld = r.astype(np.longdouble)
         f = (y_ld - r_ld - product).astype(float)
         product = None
-        g = (-(a_ld.T @ r_ld)).astype(float)
+        g = (-(a_t @ r_ld)).astype(float)
         h = solve_triangular(r11, g[pivots], trans="T")
         z = q.leading(f) - h
         dx = np.empty(k)
@@ -770,7 +772,7 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         small = extended_work(rows, k) <= extended_max_work
         rank_tolerance = SMALL_RANK_TOLERANCE if small else max(rows, k) * EPS
     threshold = rank_tolerance * (diag[0] if k else 0.0)
-    rank = sum(1 for v in diag if v > threshold) if k and diag[0] > 0 else 0
+    rank = len([v for v in diag if v > threshold]) if k and diag[0] > 0 else 0
     kept = list(range(k))
     aliases: tuple[Alias, ...] = ()
     if rank < k:
@@ -790,12 +792,14 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
     unit = np.empty_like(rk)
     unit[:, pivots] = rk
     norms = np.sqrt(np.einsum("ij,ij->j", unit, unit))
-    unit /= norms if norms.size and norms.min() > 0 else np.where(norms > 0, norms, 1.0)
+    listed = norms.tolist()
+    unit /= norms if listed and all(v > 0 for v in listed) else np.where(norms > 0, norms, 1.0)
     if len(kept):
         _, singular, vt, info = lapack.dgesdd(unit, compute_uv=1, full_matrices=0)
         if info != 0:
             _, singular, vt = np.linalg.svd(unit)
-        kappa = float(singular[0] / singular[-1])
+        top, low = singular.item(0), singular.item(-1)
+        kappa = top / low if low else math.inf  # low > 0: the kept columns are independent
         # The Frobenius norm bounds |R|_2 from above (by at most sqrt(k)): the error
         # bounds that use it stay on the safe side, without a second SVD.
         sigma_max = math.sqrt(float(norms @ norms))
@@ -857,7 +861,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         covariance_root = np.full((k, len(kept)), np.nan)
         covariance_root[kept_idx] = kept_root
     if full:
-        estimable = np.ones(k, dtype=bool)
+        estimable = np.empty(k, dtype=bool)
+        estimable.fill(True)
     else:
         estimable = np.zeros(k, dtype=bool)
         estimable[kept_idx] = True
