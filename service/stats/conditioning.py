@@ -65,7 +65,8 @@ def assess(solution: LeastSquares, names: tuple[str, ...]) -> Conditioning:
     eta = [top / m if m else (math.inf if top > 0 else math.nan) for m in mu]
     flagged = [kdx for kdx, v in enumerate(eta) if v > CONDITION_INDEX_LIMIT]
     if flagged:
-        kept_names = [n for n, e in zip(names, solution.estimable.tolist()) if e]
+        kept_names = names if solution.rank == len(names) else \
+            [n for n, e in zip(names, solution.estimable.tolist()) if e]
         v = solution.right_singular_vectors
         s = solution.singular_values
         phi = (v * v) / (s * s)

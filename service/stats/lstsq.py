@@ -748,7 +748,8 @@ def solve(x: np.ndarray, y: np.ndarray, weights: np.ndarray | None = None, *,
         e_norm = _power_of_two_exponents(xw)
         e_y = _power_of_two_exponent(y * sw_unit) + shift
     e_col = e_norm + shift if shift else e_norm  # A = sqrt(W) X 2^-e_col = xw 2^-e_norm
-    if y.any() and not SCALE_EXPONENTS[0] <= e_y <= SCALE_EXPONENTS[1]:
+    # The exponent test first: y.any() (a pass over y) only when it is out of range.
+    if not SCALE_EXPONENTS[0] <= e_y <= SCALE_EXPONENTS[1] and y.any():
         raise ResponseScaleOutOfRange(e_y)
     ys = np.ldexp(y, -e_y)
     ys_w = ys if sw is None else ys * sw
