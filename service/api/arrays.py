@@ -92,10 +92,10 @@ def _holds_booleans(value: list, arr: np.ndarray) -> bool:
     numpy reads a boolean among numbers as 1 or 0, so only the cells equal to 0 or 1
     can hold one: their Python values are looked at, nothing else.
     """
-    flat = arr.reshape(-1)
-    size = flat.size
-    if np.count_nonzero(flat) == size and np.count_nonzero(flat - 1) == size:
+    size = arr.size
+    if np.count_nonzero(arr) == size and np.count_nonzero(arr - 1) == size:
         return False  # no cell is 0 or 1 (x - 1 is 0 only for x equal to 1)
+    flat = arr.reshape(-1)
     candidates = np.flatnonzero((flat == 0) | (flat == 1))
     if not candidates.size:
         return False
@@ -113,7 +113,7 @@ def _convert(value: list, where: tuple[str | int, ...]) -> np.ndarray:
         if arr is None:
             raise _ragged(value, where) from None
     if arr.dtype.kind in "fiu" and arr.ndim <= 2 and not _holds_booleans(value, arr):
-        return _finite(arr.astype(float, copy=False), where)
+        return _finite(arr if arr.dtype.char == "d" else arr.astype(float), where)
     if arr.dtype.kind == "b":
         raise invalid([FieldError(pointer(*where), "must hold numbers, not booleans")])
     if arr.dtype.kind != "O":
