@@ -32,6 +32,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from .arrays import invalid
+from .limits import check_shape
 from .problems import ApiProblem, FieldError, pointer
 from .query import check_table_width, current_settings, options_from_query, used_columns
 
@@ -199,10 +200,7 @@ def table_body_from_arrow(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any
         seen.add(name)
     used = [names[j] for j in used_columns(names, options, "the Arrow stream")]
     check_table_width(names, options)
-    limit = current_settings().max_rows
-    if rows > limit:
-        raise invalid([FieldError("/table", f"has {rows} rows, more than the limit of "
-                                  f"{limit} (LINFER_MAX_ROWS)")])
+    check_shape("/table", current_settings(), rows=rows)
     for name in used:
         kind = schema.field(name).type
         if not (pa.types.is_integer(kind) or pa.types.is_floating(kind)):

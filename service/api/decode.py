@@ -22,6 +22,7 @@ from ..stats.summaries import Summary
 from ..stats.terms import (CategoricalTerm, ColumnTerm, PowerTerm, ProductTerm, Term,
                            TermError, expand_terms)
 from .arrays import MAX_POINTED, as_matrix, as_vector, check_unique, invalid, surely_finite
+from .limits import check_shape, over
 from .problems import FieldError, pointer
 from .schemas import FitRequestSchema, flatten_errors, load_envelope
 
@@ -43,25 +44,10 @@ class FitRequest:
     summary: Summary | None = None
 
 
-def _check_limits(n: int, k: int, where: str, settings: Settings) -> None:
-    errors = []
-    if n > settings.max_rows:
-        errors.append(FieldError(where, f"has {n} rows, more than the limit of "
-                                 f"{settings.max_rows} (LINFER_MAX_ROWS)"))
-    if k > settings.max_columns:
-        errors.append(FieldError(where, f"has {k} design columns, more than the limit of "
-                                 f"{settings.max_columns} (LINFER_MAX_COLUMNS)"))
-    if n * k > settings.max_cells:
-        errors.append(FieldError(where, f"has {n} x {k} = {n * k} cells, more than the limit "
-                                 f"of {settings.max_cells} (LINFER_MAX_CELLS)"))
-    if errors:
-        raise invalid(errors)
-
-
 def _check_levels(levels: list[float], settings: Settings) -> tuple[float, ...]:
     if len(levels) > settings.max_levels:
-        raise invalid([FieldError("/levels", f"has {len(levels)} levels, more than the limit "
-                                  f"of {settings.max_levels} (LINFER_MAX_LEVELS)")])
+        raise invalid([FieldError("/levels", over(len(levels), "levels", settings.max_levels,
+                                                  "LINFER_MAX_LEVELS"))])
     check_unique(levels, ("levels",), what="level ")
     return tuple(levels)
 
@@ -131,7 +117,7 @@ def _matrix_layout(data: dict[str, Any], settings: Settings):
     if y.shape[0] != n:
         raise invalid([FieldError("/response", f"response has {y.shape[0]} values, "
                                   f"design_matrix has {n} rows")])
-    _check_limits(n, m + int(data["intercept"]), "/design_matrix", settings)
+    check_shape("/design_matrix", settings, n, m + int(data["intercept"]))
     names, where = _names_for_matrix(data, m, data["intercept"])
     w = None
     if "weights" in data:
@@ -175,7 +161,7 @@ def _table_layout(data: dict[str, Any], settings: Settings):
                                   "rename the column or set intercept to false")])
     y = as_vector(table[response], ("table", response))
     n = y.shape[0]
-    _check_limits(n, len(predictors) + int(data["intercept"]), "/table", settings)
+    check_shape("/table", settings, n, len(predictors) + int(data["intercept"]))
     columns = []
     for name in predictors:
         col = as_vector(table[name], ("table", name))
@@ -207,7 +193,7 @@ def _table_layout(data: dict[str, Any], settings: Settings):
     except TermError as err:
         at = pointer("terms", err.index, *([err.field] if err.field else []))
         raise invalid([FieldError(at, str(err))]) from None
-    _check_limits(n, len(expanded.names) + int(data["intercept"]), "/terms", settings)
+    check_shape("/terms", settings, n, len(expanded.names) + int(data["intercept"]))
     if data["intercept"] and INTERCEPT in expanded.names:
         raise invalid([FieldError("/terms", "a term makes a column named 'intercept', the "
                                   "name of the column of ones the service adds")])
@@ -297,15 +283,14 @@ def decode_design(data: dict[str, Any], body: dict[str, Any],
 def _hypotheses(data: dict[str, Any], settings: Settings) -> tuple[Hypothesis, ...]:
     sets = data.get("hypotheses") or []
     if len(sets) > settings.max_hypotheses:
-        raise invalid([FieldError("/hypotheses", f"has {len(sets)} sets, more than the limit "
-                                  f"of {settings.max_hypotheses} (LINFER_MAX_HYPOTHESES)")])
+        raise invalid([FieldError("/hypotheses", over(len(sets), "sets", settings.max_hypotheses,
+                                                      "LINFER_MAX_HYPOTHESES"))])
     out = []
     for i, h in enumerate(sets):
         if len(h["restrictions"]) > settings.max_columns:
             raise invalid([FieldError(pointer("hypotheses", i, "restrictions"),
-                                      f"has {len(h['restrictions'])} restrictions, more than "
-                                      f"the limit of {settings.max_columns} "
-                                      "(LINFER_MAX_COLUMNS)")])
+                                      over(len(h["restrictions"]), "restrictions",
+                                           settings.max_columns, "LINFER_MAX_COLUMNS"))])
         out.append(Hypothesis(label=h.get("label"), restrictions=tuple(
             Restriction(coefficients=tuple(r["coefficients"].items()), equals=r["equals"])
             for r in h["restrictions"])))
@@ -365,9 +350,8 @@ def decode_summary(data: dict[str, Any], settings: Settings) -> Summary:
                                   "the intercept column (a column of ones) must come first")])
     if len(names) > settings.max_columns:
         # n_observations is not a limit: the rows never travel, which is the point.
-        raise invalid([FieldError("/summary/column_names", f"has {len(names)} columns, "
-                                  f"more than the limit of {settings.max_columns} "
-                                  "(LINFER_MAX_COLUMNS)")])
+        raise invalid([FieldError("/summary/column_names", over(
+            len(names), "columns", settings.max_columns, "LINFER_MAX_COLUMNS"))])
     if data.get("covariance", "classical") != "classical":
         raise invalid([FieldError("/covariance", "robust covariances need the rows; a "
                                   "summary supports only classical")])

@@ -17,6 +17,7 @@ from ..stats.design import INTERCEPT
 from ..stats.model import ModelSummary
 from .arrays import as_matrix, as_vector, check_unique, invalid
 from .encode import number
+from .limits import over
 from .problems import FieldError, pointer
 
 __all__ = ["decode_model", "encode_model", "decode_new_rows"]
@@ -52,8 +53,8 @@ def decode_model(m: dict[str, Any], settings: Settings) -> ModelSummary:
     names = m["names"]
     k = len(names)
     if k > settings.max_columns:
-        raise _fail(("names",), f"has {k} coefficients, more than the limit of "
-                    f"{settings.max_columns} (LINFER_MAX_COLUMNS)")
+        raise _fail(("names",), over(k, "coefficients", settings.max_columns,
+                                     "LINFER_MAX_COLUMNS"))
     seen = check_unique(names, ("model", "names"))
     if m["intercept"] and names[0] != INTERCEPT:
         raise _fail(("names", 0), "a model with an intercept names it 'intercept', first")

@@ -11,6 +11,7 @@ from typing import Any, Mapping
 
 from ..settings import Settings
 from .arrays import invalid
+from .limits import check_shape
 from .problems import FieldError, pointer
 
 __all__ = ["QUERY_PARAMETERS", "NUMBER", "options_from_query", "current_settings",
@@ -135,10 +136,7 @@ def check_table_width(names: list[str], options: dict[str, Any]) -> None:
         return
     weights = options.get("weights")
     k = len(names) - 1 - int(weights in names) + int(options.get("intercept", True))
-    limit = current_settings().max_columns
-    if k > limit:
-        raise invalid([FieldError("/table", f"has {k} design columns, more than the limit "
-                                  f"of {limit} (LINFER_MAX_COLUMNS)")])
+    check_shape("/table", current_settings(), columns=k)
 
 
 def _listed(names: list[str]) -> str:

@@ -15,7 +15,6 @@ from werkzeug.sansio.utils import get_content_length
 
 from ..observability import record_shape
 from ..settings import Settings
-from ..time_limit import body_received
 from ..stats.design import INTERCEPT, Design
 from ..stats.fit import FitOptions, FitResult, TooFewObservations, fit, fit_summary
 from ..stats.hypotheses import HypothesisError, test_hypotheses
@@ -23,6 +22,7 @@ from ..stats.lstsq import RankDeficient, ResponseScaleOutOfRange
 from ..stats.model import ModelSummary
 from ..stats.predict import predict
 from ..stats.summaries import Summary, SummaryError
+from ..time_limit import body_received
 from .arrays import invalid
 from .arrow_io import ARROW_MEDIA_TYPE, table_body_from_arrow
 from .csv_io import CSV_MEDIA_TYPE, coefficients_csv, table_body_from_csv
