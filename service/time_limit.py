@@ -9,7 +9,10 @@ How: gunicorn's sync workers run each request on the process's main thread, so a
 real-time interval timer (``setitimer``, SIGALRM) armed when the request starts
 interrupts it there: the signal handler raises :class:`RequestTimeLimit` in the
 running Python code (a call into LAPACK finishes first; a socket read is interrupted).
-The timer is disarmed before the answer is written. The handler is installed in each
+Should the exception land where Python cannot pass it on (a finaliser or a garbage
+collector callback swallows it) or where code catches every exception, the timer fires
+again every tenth of a second until the answer is on its way. The timer is disarmed
+before the answer is written. The handler is installed in each
 worker after the fork (:func:`install`, from service/gunicorn_config.py); without it
 (the Flask test client, threaded servers) no timer is armed, SIGALRM stays with its
 owner, and gunicorn's worker timeout (LINFER_TIMEOUT, the hard stop for a worker
@@ -32,11 +35,15 @@ class RequestTimeLimit(Exception):
     """Raised in the request's own code when its time is up."""
 
 
+# Seconds between repeated expiries, should the first be lost.
+_REPEAT = 0.1
 _installed = False
+_answering = False
 
 
 def _expired(signum: int, frame: object) -> None:
-    raise RequestTimeLimit()
+    if not _answering:
+        raise RequestTimeLimit()
 
 
 def install() -> object:
@@ -59,10 +66,12 @@ def uninstall(previous: object) -> None:
 
 
 def _arm() -> None:
+    global _answering
     if _installed:
+        _answering = False
         g.body_received = False
         signal.setitimer(signal.ITIMER_REAL, current_app.config["LINFER_SETTINGS"]
-                         .max_request_seconds)
+                         .max_request_seconds, _REPEAT)
 
 
 def _disarm() -> None:
@@ -85,6 +94,8 @@ def _teardown(error: BaseException | None) -> None:
 
 
 def _answer(error: RequestTimeLimit) -> Response:
+    global _answering
+    _answering = True
     _disarm()
     seconds = current_app.config["LINFER_SETTINGS"].max_request_seconds
     limit = f"the limit of {seconds:g} s (LINFER_MAX_REQUEST_SECONDS)"
