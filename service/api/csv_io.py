@@ -63,7 +63,10 @@ CSV_MEDIA_TYPE = "text/csv"
 
 # Bytes that cells of plain numbers are made of; data holding only these take the
 # fast path (pandas would read "true" as 1.0 and "inf" as infinity: they hold others).
-_NUMERIC_BYTES = b"0123456789+-.eE \t,\r\n\""
+# The bytes of plain numbers and their separators, and the spaces, tabs and quotes that
+# may sit between them (each of which asks for a further check).
+_NUMERIC_BYTES = b"0123456789+-.eE,\r\n"
+_SPACING_BYTES = b' \t"'
 _BOM = b"\xef\xbb\xbf"
 # pandas reads "0E 0" as a number; the careful path, rightly, does not. The same as
 # [eE][ \t] | [ \t][eE] | [0-9.][ \t]+[0-9+\-.], written to start at a space or a tab
@@ -198,13 +201,17 @@ def _plain_header(raw: bytes) -> tuple[str, int] | None:
         return None
     if not head.strip():
         return None
+    spaced = quoted = False
     for i in range(end + 1, len(raw), _CHUNK):
-        if raw[i:i + _CHUNK].translate(None, _NUMERIC_BYTES):
-            return None
-    if (raw.find(b" ", end + 1) >= 0 or raw.find(b"\t", end + 1) >= 0) \
-            and _SPACED_EXPONENT.search(raw, end + 1):
+        rest = raw[i:i + _CHUNK].translate(None, _NUMERIC_BYTES)
+        if rest:
+            if rest.translate(None, _SPACING_BYTES):
+                return None
+            spaced = spaced or b" " in rest or b"\t" in rest
+            quoted = quoted or b'"' in rest
+    if spaced and _SPACED_EXPONENT.search(raw, end + 1):
         return None
-    if raw.find(b'"', end + 1) >= 0 and not _plain_quotes(raw, end + 1):
+    if quoted and not _plain_quotes(raw, end + 1):
         return None
     return head, end + 1
 
