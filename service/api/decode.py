@@ -8,6 +8,7 @@ values). Every failure is a 422 problem whose pointers name the offending values
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -61,6 +62,13 @@ def _check_weights(w: np.ndarray, n: int, where: tuple[str | int, ...]) -> None:
                        for i in negative[:MAX_POINTED]])
     if not np.any(w > 0):
         raise invalid([FieldError(pointer(*where), "must have at least one positive weight")])
+    with np.errstate(over="ignore"):
+        total = float(np.nansum(w))
+    if not math.isfinite(total):
+        # The sums of the fit start from the sum of the weights: it must be a double.
+        raise invalid([FieldError(pointer(*where), "the weights sum to more than the largest "
+                                  "double (about 1.8e308); divide them all by a power of ten "
+                                  "(the estimates and standard errors do not change)")])
 
 
 def _reject_missing(arrays: list[tuple[np.ndarray, tuple[str | int, ...], bool]]) -> None:

@@ -237,6 +237,10 @@ class _Layout(Schema):
         matrix = "design_matrix" in data or "response" in data
         table = "table" in data
         model = "model" in data
+        if "summary" in data and self.model_allowed:
+            raise ValidationError({"summary": [
+                "is for /v1/fit: fit the summary there with return_model set to true, and "
+                "send the model it returns here as model"]})
         if "summary" in data:
             clash = [name for name in ("design_matrix", "response", "table", "column_names",
                                        "response_column", "predictor_columns", "terms",
@@ -262,7 +266,7 @@ class _Layout(Schema):
                                   field_name="table")
         if not matrix and not table:
             what = ("a model summary (model), or the data as design_matrix and response, "
-                    "or as table with response_column, or a summary of them"
+                    "or as table with response_column"
                     if self.model_allowed else
                     "the data as design_matrix and response, or as table with "
                     "response_column, or a summary of them")

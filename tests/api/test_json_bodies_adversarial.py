@@ -1,0 +1,80 @@
+"""Adversarial JSON bodies for /v1/fit, /v1/predict and /v1/test.
+
+Each case here was once a 500, or a 200 with a wrong or unexplained figure. Every
+answer must be a result or a 4xx problem whose pointers resolve in the request.
+"""
+
+from __future__ import annotations
+
+import copy
+
+import numpy as np
+import pytest
+
+from pointers import resolve
+
+PROBLEM = "application/problem+json"
+X = [[1.0, 2.0], [2.0, 3.0], [3.0, 5.0], [4.0, 1.0], [5.0, 4.0], [6.0, 2.5], [7.0, 1.0]]
+Y = [1.0, 2.0, 3.0, 4.0, 6.0, 5.5, 7.0]
+
+
+def problem(response, body, status=422):
+    """The problem document of ``response``, its pointers checked against ``body``."""
+    assert response.status_code == status, response.get_data(as_text=True)
+    assert response.mimetype == PROBLEM
+    doc = response.get_json()
+    for error in doc["errors"]:
+        resolve(body, error["pointer"])
+    return doc
+
+
+def fitted_model(client, **extra):
+    body = {"design_matrix": X, "response": Y, "return_model": True, **extra}
+    response = client.post("/v1/fit", json=body)
+    assert response.status_code == 200
+    return response.get_json()["model"]
+
+
+# --- weights whose sum is beyond the double range (was a 500: fsum overflow) ---
+
+@pytest.mark.parametrize("layout", ["matrix", "table"])
+def test_weights_summing_beyond_double_range_are_a_422(client, layout):
+    weights = [1e308] * len(Y)
+    if layout == "matrix":
+        body = {"design_matrix": X, "response": Y, "weights": weights}
+        at = "/weights"
+    else:
+        body = {"table": {"a": [r[0] for r in X], "b": [r[1] for r in X], "y": Y,
+                          "w": weights}, "response_column": "y", "weights": "w"}
+        at = "/table/w"
+    doc = problem(client.post("/v1/fit", json=body), body)
+    assert doc["errors"][0]["pointer"] == at
+    assert "1.8e308" in doc["errors"][0]["message"]
+
+
+def test_weights_near_the_limit_give_the_unweighted_estimates(client):
+    # Equal weights do not move the estimates: the same rows without weights.
+    body = {"design_matrix": X, "response": Y}
+    plain = client.post("/v1/fit", json=body).get_json()
+    heavy = client.post("/v1/fit", json={**body, "weights": [1e306] * len(Y)}).get_json()
+    for a, b in zip(plain["coefficients"], heavy["coefficients"]):
+        assert b["estimate"] == pytest.approx(a["estimate"], rel=1e-12)
+        assert b["standard_error"] == pytest.approx(a["standard_error"], rel=1e-12)
+
+
+# --- a summary sent to /v1/predict or /v1/test (was a 500: KeyError) ---
+
+@pytest.mark.parametrize("path, extra", [
+    ("/v1/predict", {"new_rows": [[1.0, 2.0]]}),
+    ("/v1/test", {"hypotheses": [{"restrictions": [{"coefficients": {"x1": 1}}]}]}),
+])
+def test_summary_on_predict_and_test_is_a_422(client, path, extra):
+    a = np.column_stack([np.ones(len(Y)), np.array(X), np.array(Y)])
+    xtx = a[:, :3].T @ a[:, :3]
+    body = {"summary": {"kind": "cross_products", "n_observations": len(Y),
+                        "column_names": ["intercept", "x1", "x2"], "xtx": xtx.tolist(),
+                        "xty": (a[:, :3].T @ a[:, 3]).tolist(), "yty": float(a[:, 3] @ a[:, 3])},
+            **extra}
+    doc = problem(client.post(path, json=body), body)
+    assert doc["errors"][0]["pointer"] == "/summary"
+    assert "return_model" in doc["errors"][0]["message"]
