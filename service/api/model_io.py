@@ -144,9 +144,17 @@ def _root(value: Any, cov: np.ndarray, missing: np.ndarray) -> np.ndarray | None
                     "is null")
     est = ~missing
     v = cov[np.ix_(est, est)]
-    product = g[est] @ g[est].T
-    scale = float(np.max(np.abs(v))) if v.size else 0.0
-    if scale > 0 and float(np.max(np.abs(product - v))) > 1e-6 * scale:
+    if not np.all(np.isfinite(v)):
+        # The service writes no root beside a covariance it reports as undefined.
+        raise _fail(("covariance_root",), "must be null when the covariance is null")
+    with np.errstate(over="ignore", invalid="ignore"):
+        product = g[est] @ g[est].T
+        # Against the larger of the two: a zero covariance needs a zero root.
+        scale = max(float(np.max(np.abs(v))), float(np.max(np.abs(product)))) if v.size \
+            else 0.0
+        wrong = not math.isfinite(scale) or (
+            scale > 0 and float(np.max(np.abs(product - v))) > 1e-6 * scale)
+    if wrong:
         raise _fail(("covariance_root",), "does not reproduce the covariance "
                     "(covariance_root times its transpose must equal covariance)")
     return g

@@ -152,6 +152,17 @@ def _spread(summary: Summary, f: np.ndarray) -> np.ndarray | None:
     return spread
 
 
+def _constant_response(summary: Summary, total: float, fy: np.ndarray) -> bool:
+    """Whether the centred total is at the rounding level of the response, the level
+    :func:`service.stats.inference.is_perfect_fit` uses: ``8 n eps |y|`` for R's
+    ``|f_y[1:]|``; for cross products, whose ``y'y - (1'y)^2 / n`` cancels in squares,
+    ``8 n eps y'y`` for the centred sum of squares."""
+    n = summary.n_observations
+    if summary.kind == "triangular":
+        return total <= 8 * n * EPS * float(np.linalg.norm(fy))
+    return total * total <= 8 * n * EPS * summary.yty
+
+
 def solve_summary(summary: Summary, *, drop_aliased: bool, extended_max_work: int,
                   extended_below_digits: float) -> tuple[LeastSquares, np.ndarray | None]:
     """The least-squares solution from a summary, and the column spreads for VIF.
@@ -196,8 +207,13 @@ def solve_summary(summary: Summary, *, drop_aliased: bool, extended_max_work: in
         # number of the augmented [X y] (worse than X's whenever the fit is good).
         lost = 2 * math.log10(max(_augmented_condition(summary, f), 1.0))
         digits = min(sol.estimated_correct_digits, max(0.0, 15.95 - lost))
+    residual = sol.residual_norm
+    if summary.intercept and _constant_response(summary, total, fy):
+        # What the rows of a constant response give: no variation about the mean, none
+        # explained, none left (R squared undefined), instead of a ratio of roundings.
+        total = regression = residual = 0.0
     sol = dataclasses.replace(
         sol, fitted=np.zeros(0), residuals=np.zeros(0), regression_norm=regression,
-        total_norm=total, response_norm=float(np.linalg.norm(fy)),
+        total_norm=total, residual_norm=residual, response_norm=float(np.linalg.norm(fy)),
         estimated_correct_digits=digits, projection=None)
     return sol, _spread(summary, f)

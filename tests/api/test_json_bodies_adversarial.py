@@ -78,3 +78,55 @@ def test_summary_on_predict_and_test_is_a_422(client, path, extra):
     doc = problem(client.post(path, json=body), body)
     assert doc["errors"][0]["pointer"] == "/summary"
     assert "return_model" in doc["errors"][0]["message"]
+
+
+# --- a covariance_root that does not belong to the covariance (was a 200 whose
+#     standard errors came from the root while the covariance said otherwise) ---
+
+@pytest.mark.parametrize("covariance", ["null", "zero"])
+def test_model_root_must_match_the_covariance(client, covariance):
+    model = fitted_model(client)
+    k = len(model["names"])
+    model["covariance"] = [[None if covariance == "null" else 0.0] * k for _ in range(k)]
+    body = {"model": model, "new_rows": [[1.0, 2.0]]}
+    doc = problem(client.post("/v1/predict", json=body), body)
+    assert doc["errors"][0]["pointer"] == "/model/covariance_root"
+
+
+def test_model_with_null_covariance_and_no_root_has_null_standard_errors(client):
+    model = fitted_model(client)
+    k = len(model["names"])
+    model["covariance"] = [[None] * k for _ in range(k)]
+    model["covariance_root"] = None
+    doc = client.post("/v1/predict", json={"model": model, "new_rows": [[1.0, 2.0]]}).get_json()
+    assert doc["predictions"][0]["standard_error"] is None
+    assert [w["code"] for w in doc["warnings"]] == ["covariance_undefined"]
+
+
+# --- a constant response sent as a summary (was R squared 0.505 from a triangular
+#     summary, 1.0 from cross products, from rounding; the rows give null) ---
+
+@pytest.mark.parametrize("value", [3.0, 0.1, 1e6 + 0.1])
+@pytest.mark.parametrize("kind", ["triangular", "cross_products"])
+def test_constant_response_from_a_summary_answers_as_the_rows_do(client, kind, value):
+    x = np.array(X)
+    y = np.full(len(Y), value)
+    a = np.column_stack([np.ones(len(y)), x, y])
+    names = ["intercept", "x1", "x2"]
+    if kind == "triangular":
+        summary = {"r_factor": np.linalg.qr(a, mode="r").tolist()}  # numpy's QR of [1 X y]
+    else:
+        summary = {"xtx": (a[:, :3].T @ a[:, :3]).tolist(), "xty": (a[:, :3].T @ y).tolist(),
+                   "yty": float(y @ y)}
+    body = {"summary": {"kind": kind, "n_observations": len(y), "column_names": names,
+                        **summary}}
+    doc = client.post("/v1/fit", json=body).get_json()
+    rows = client.post("/v1/fit", json={"design_matrix": X, "response": y.tolist()}).get_json()
+    # The rows of the same data: R squared null, the sums of squares 0.
+    assert rows["fit"]["r_squared"] is None
+    for name in ("r_squared", "residual_sum_of_squares", "regression_sum_of_squares",
+                 "total_sum_of_squares"):
+        assert doc["fit"][name] == rows["fit"][name]
+    codes = [w["code"] for w in doc["warnings"]]
+    assert "constant_response" in codes and "perfect_fit" in codes
+    assert doc["coefficients"][0]["estimate"] == pytest.approx(value, rel=1e-12)
