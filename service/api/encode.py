@@ -94,7 +94,7 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
                             else encode_residual_checks(result.residual_checks)),
         "warnings": [{"code": n.code, "message": n.message,
                       "pointer": column_pointers.get(n.column) if n.column else None}
-                     for n in result.notices],
+                     for n in result.notices] + _hypothesis_overflow(result.hypotheses),
         "numerics": {
             "method": result.numerics.method,
             "working_digits": result.numerics.working_digits,
@@ -107,6 +107,16 @@ def encode_fit(result: FitResult, column_pointers: dict[str, str]) -> dict[str, 
                                  if t.kind == "categorical" else {})}
                              for t in design.terms]
     return document
+
+
+def _hypothesis_overflow(tests) -> list[dict[str, Any]]:
+    """A warning per test whose F statistic is beyond the double range (null)."""
+    return [{"code": "overflow", "message": (
+        f"The F statistic of hypothesis set {i} exceeds the range of double precision "
+        "(about 1e308) and is null, with the restricted residual sum of squares; its p "
+        "value is computed without it. The restrictions are far from the estimates: "
+        "check their units."), "pointer": f"/hypotheses/{i}"}
+        for i, h in enumerate(tests) if math.isinf(h.statistic)]
 
 
 def intervals(items) -> list[dict[str, Any]]:

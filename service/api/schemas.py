@@ -380,8 +380,9 @@ def flatten_errors(messages: Any, prefix: tuple[str | int, ...] = ()) -> list[Fi
             if key == "_schema":
                 out.extend(flatten_errors(value, prefix))
             elif isinstance(value, dict) and set(value) <= {"key", "value"}:
+                # A key cannot be pointed at (its object is); a value can.
                 out.extend(flatten_errors(value.get("key", []), prefix))
-                out.extend(flatten_errors(value.get("value", []), prefix))
+                out.extend(flatten_errors(value.get("value", []), prefix + (key,)))
             else:
                 out.extend(flatten_errors(value, prefix + (key,)))
     elif isinstance(messages, list):

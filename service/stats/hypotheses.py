@@ -15,7 +15,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg
+from scipy import linalg, special
 
 from .distributions import f_upper_p
 from .model import ModelSummary
@@ -120,6 +120,37 @@ def _through_root(m: np.ndarray, d: np.ndarray, df: int) -> float:
     return float(z @ z)
 
 
+def _statistic(r: np.ndarray, d: np.ndarray, root: np.ndarray | None, v: np.ndarray,
+               df: int) -> float:
+    """``d' (R V R')^-1 d``, through the root when there is one (NaN when undefined)."""
+    if root is not None:
+        return _through_root(r @ root, d, df)
+    middle = r @ v @ r.T
+    if df > 0 and np.all(np.isfinite(middle)) and np.any(middle):
+        try:
+            factor = linalg.cho_factor(middle)
+            return float(d @ linalg.cho_solve(factor, d))
+        except linalg.LinAlgError:
+            return math.nan
+    return math.nan
+
+
+def _far_off(r: np.ndarray, d: np.ndarray, root: np.ndarray | None, v: np.ndarray,
+             df: int, m: int) -> tuple[float, float]:
+    """The statistic and p value when ``d' (R V R')^-1 d`` overflows although ``d`` is
+    finite (restrictions far from the estimates): the quadratic form of ``d / 2^e``
+    times ``2^(2e)`` (inf only when the statistic itself is beyond the double range),
+    and ``P(F >= f) = I_x(df/2, m/2)`` with ``x = df / (df + m f)``, which is
+    ``df / (m f)`` to the last bit for such f, formed from the scaled form."""
+    _, e = math.frexp(float(np.max(np.abs(d))))
+    unit = _statistic(r, np.ldexp(d, -e), root, v, df) / m
+    stat = float(np.ldexp(unit, 2 * e))
+    if not math.isfinite(stat):
+        x = float(np.ldexp(df / (m * unit), -2 * e))
+        return stat, float(special.betainc(0.5 * df, 0.5 * m, x))
+    return stat, float(f_upper_p(stat, m, df))
+
+
 def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
                     residual_sum_of_squares: float | None = None) -> list[HypothesisResult]:
     """Test each set of restrictions against ``model``; results in order.
@@ -142,7 +173,9 @@ def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
         rmat, q = _matrix(model, h, index)
         scaled = rmat * unit[None, :]
         size = np.max(np.abs(scaled), axis=1, keepdims=True)
-        _check_independent(scaled / size, q / size[:, 0], index)
+        with np.errstate(over="ignore"):
+            q_scaled = q / size[:, 0]
+        _check_independent(scaled / size, q_scaled, index)
         prepared.append((h, rmat, q))
     estimable = model.estimable
     b = model.estimates[estimable]
@@ -160,19 +193,11 @@ def test_hypotheses(model: ModelSummary, hypotheses: tuple[Hypothesis, ...],
         r = rmat[:, estimable]
         m = r.shape[0]
         d = r @ b - q
-        stat = math.nan
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            if root is not None:
-                stat = _through_root(r @ root, d, df) / m
-            else:
-                middle = r @ v @ r.T
-                if df > 0 and np.all(np.isfinite(middle)) and np.any(middle):
-                    try:
-                        factor = linalg.cho_factor(middle)
-                        stat = float(d @ linalg.cho_solve(factor, d)) / m
-                    except linalg.LinAlgError:
-                        stat = math.nan
+            stat = _statistic(r, d, root, v, df) / m
             p = float(f_upper_p(stat, m, df)) if math.isfinite(stat) else math.nan
+            if math.isinf(stat) and np.all(np.isfinite(d)):
+                stat, p = _far_off(r, d, root, v, df, m)
         rss = residual_sum_of_squares if classical and residual_sum_of_squares is not None \
             else math.nan
         restricted = rss + m * stat * s2 if classical and math.isfinite(rss) else math.nan

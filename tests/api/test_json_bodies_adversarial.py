@@ -130,3 +130,58 @@ def test_constant_response_from_a_summary_answers_as_the_rows_do(client, kind, v
     codes = [w["code"] for w in doc["warnings"]]
     assert "constant_response" in codes and "perfect_fit" in codes
     assert doc["coefficients"][0]["estimate"] == pytest.approx(value, rel=1e-12)
+
+
+# --- a restriction far from the estimates (was statistic and p value null with no
+#     warning: d' (R V R')^-1 d overflowed on the way) ---
+
+def test_far_restriction_has_its_statistic_when_it_is_a_double(client):
+    from scipy import stats
+    model = fitted_model(client)
+    scale = 1e12
+    model["covariance"] = [[c * scale for c in row] for row in model["covariance"]]
+    model["residual_variance"] *= scale
+    model["covariance_root"] = None
+    q = 1e155
+    body = {"model": model, "hypotheses": [{"restrictions": [
+        {"coefficients": {"x1": 1}, "equals": q}]}]}
+    doc = client.post("/v1/test", json=body).get_json()
+    h = doc["hypotheses"][0]
+    # The F statistic of one restriction is (b1 - q)^2 / V11, formed here in scaled terms.
+    b1, v11 = model["estimates"][1], model["covariance"][1][1]
+    expected = ((b1 - q) / 1e150) ** 2 / v11 * 1e300
+    assert h["statistic"] == pytest.approx(expected, rel=1e-12)
+    assert h["p_value"] == pytest.approx(stats.f.sf(expected, 1, model["residual_df"]),
+                                         rel=1e-9)  # scipy.stats
+
+
+def test_restriction_beyond_the_double_range_has_a_p_value_and_a_warning(client):
+    from scipy import stats
+    # One residual df: P(F(1, 1) >= f) falls only as f^-1/2, so the p value of an F
+    # statistic beyond 1e308 is still a double (about 1e-156).
+    x = [[1.0], [2.0], [4.0]]
+    y = [1.0, 2.5, 3.0]
+    q = 1e160
+    body = {"design_matrix": x, "response": y,
+            "hypotheses": [{"restrictions": [{"coefficients": {"x1": 1}, "equals": q}]}]}
+    doc = client.post("/v1/fit", json=body).get_json()
+    h = doc["hypotheses"][0]
+    assert h["statistic"] is None
+    se = doc["coefficients"][1]["standard_error"]
+    # scipy.stats: P(F(1, 1) >= t^2) is the two-sided t(1) tail at t = (q - b) / se.
+    expected = 2 * stats.t.sf((q - doc["coefficients"][1]["estimate"]) / se, 1)
+    assert h["p_value"] == pytest.approx(expected, rel=1e-9)
+    warning = [w for w in doc["warnings"] if w["code"] == "overflow"]
+    assert warning and warning[0]["pointer"] == "/hypotheses/0"
+    resolve(body, warning[0]["pointer"])
+
+
+# --- a restriction multiplier of the wrong type (was pointed at the coefficients
+#     object, not at the multiplier) ---
+
+@pytest.mark.parametrize("value", ["1", None, True, [1]])
+def test_bad_multiplier_is_pointed_at(client, value):
+    body = {"design_matrix": X, "response": Y, "hypotheses": [{"restrictions": [
+        {"coefficients": {"x1": 1, "a/b": value}}]}]}
+    doc = problem(client.post("/v1/fit", json=body), body)
+    assert doc["errors"][0]["pointer"] == "/hypotheses/0/restrictions/0/coefficients/a~1b"
