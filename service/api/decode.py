@@ -7,6 +7,7 @@ values). Every failure is a 422 problem whose pointers name the offending values
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import math
 from dataclasses import dataclass
@@ -312,15 +313,10 @@ def fit_options(data: dict[str, Any], settings: Settings) -> FitOptions:
     drop_aliased = data.get("rank_deficiency") == "drop_aliased"
     covariance = data.get("covariance", "classical")
     influence = "influence" in data.get("include", ())
-    if hypotheses:
-        return FitOptions(levels=levels, drop_aliased=drop_aliased,
-                          extended_max_work=settings.extended_max_work,
-                          extended_below_digits=settings.extended_below_digits,
-                          covariance=covariance, simultaneous=data.get("simultaneous"),
-                          hypotheses=hypotheses, include_influence=influence)
-    return _plain_options(levels, drop_aliased, settings.extended_max_work,
-                          settings.extended_below_digits, covariance,
-                          data.get("simultaneous"), influence)
+    options = _plain_options(levels, drop_aliased, settings.extended_max_work,
+                             settings.extended_below_digits, covariance,
+                             data.get("simultaneous"), influence)
+    return dataclasses.replace(options, hypotheses=hypotheses) if hypotheses else options
 
 
 @functools.lru_cache(maxsize=64)
