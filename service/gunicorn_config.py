@@ -63,11 +63,13 @@ timeout = int(os.environ.get("LINFER_TIMEOUT", "60"))
 # stuck in one long computation, so the first must be the shorter.
 if not os.environ.get("LINFER_MAX_REQUEST_SECONDS"):
     os.environ["LINFER_MAX_REQUEST_SECONDS"] = str(timeout / 2)
+from service import settings as _settings  # noqa: E402  (standard library only)
+
 try:
-    _request_seconds = float(os.environ["LINFER_MAX_REQUEST_SECONDS"])
-except ValueError:
-    _request_seconds = None  # the app's settings refuse it with the reason
-if _request_seconds is not None and not _request_seconds < timeout:
+    _request_seconds = _settings.load().max_request_seconds
+except _settings.SettingsError as _err:  # the reason, without a traceback
+    raise SystemExit(str(_err)) from None
+if not _request_seconds < timeout:
     raise SystemExit(f"LINFER_MAX_REQUEST_SECONDS={_request_seconds:g} must be below the "
                      f"worker timeout LINFER_TIMEOUT={timeout}")
 graceful_timeout = 20
