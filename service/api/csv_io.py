@@ -370,13 +370,16 @@ def _careful(text: str, header: list[str], used: Sequence[int]) -> tuple[int, li
 
 
 def _used_columns(header: list[str], options: dict[str, Any]) -> list[int]:
-    """Positions of the columns to send; 422 for names the header lacks."""
+    """Positions of the columns to send; 422 for names the header lacks, or for a header
+    wider than the column limit allows (answered before any row is parsed)."""
     hint = ""
     if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
         sep = next(s for s in ";\t|" if s in header[0])
         hint = (f"; the header has one column, {_quote(header[0])}: linfer reads "
                 f"comma-separated values, and this file seems to separate them by {sep!r}")
-    return used_columns(header, options, "the CSV header", hint)
+    used = used_columns(header, options, "the CSV header", hint)
+    check_table_width(header, options)
+    return used
 
 
 def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
@@ -422,7 +425,6 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
         # The careful path's checks of the body before the header would all pass.
         header, header_line = _header(plain[0])
         used = _used_columns(header, options)
-        check_table_width(header, options)
         values = _fast(raw, plain[1], len(header), used)
         if values is not None and (len(used) < len(header)
                                    or any(np.isnan(c).any() for c in values)):
@@ -436,7 +438,6 @@ def table_body_from_csv(raw: bytes, query: Mapping[str, Any]) -> dict[str, Any]:
         text = _decode(raw)
         header, header_line = _header(text)
         used = _used_columns(header, options)
-        check_table_width(header, options)
         n, columns = _careful(text, header, used)
     if n == 0:
         raise invalid([FieldError("/table", f"the CSV has a header row (line {header_line}) "
